@@ -82,6 +82,9 @@ class RawLog:
     """Files read, in the order read (sorted by name within a folder)."""
     columns: ColumnDetection
     """How columns were mapped."""
+    skipped_files: tuple[str, ...] = ()
+    """Files in the LOGS folder passed over because their type is not supported (relative
+    paths); hidden files are not listed."""
 
 
 @dataclass(frozen=True, slots=True)

@@ -1,0 +1,101 @@
+"""The aggregates every later stage reads."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+import scipy.sparse as sp
+
+
+@dataclass(frozen=True, slots=True)
+class Aggregates:
+    """Compact statistics of the counted interactions (events that count as interactions).
+
+    Users and items are numbered ``0..n-1``; ``user_labels`` / ``item_labels`` map the numbers
+    back to the original string ids. Items from the catalogue that no one touched are
+    numbered too (after the seen items), so they take part in coverage and the cold list.
+    """
+
+    user_labels: np.ndarray
+    """Original user id of each user number (object array of str)."""
+    item_labels: np.ndarray
+    """Original item id of each item number (object array of str); seen items first."""
+    n_seen_items: int
+    """Items with at least one counted interaction (numbers ``0..n_seen_items-1``)."""
+    pairs: pd.DataFrame
+    """One row per distinct (user, item) pair with a counted interaction. Columns:
+    ``user_idx`` (int32), ``item_idx`` (int32), ``first_ts`` and ``last_ts`` (int64 epoch
+    seconds), ``events`` (int32 counted events), ``weight`` (float64 summed weights)."""
+    user_items: np.ndarray
+    """Distinct items per user (int64, length n_users)."""
+    user_events: np.ndarray
+    """Counted events per user (int64)."""
+    user_first_ts: np.ndarray
+    """Epoch seconds of each user's first counted interaction (int64)."""
+    user_last_ts: np.ndarray
+    """Epoch seconds of each user's latest counted interaction (int64)."""
+    item_users: np.ndarray
+    """Distinct users per item (int64, length n_items; zero for unseen catalogue items)."""
+    item_events: np.ndarray
+    """Counted events per item (int64)."""
+    item_first_ts: np.ndarray
+    """Epoch seconds of each item's first counted interaction (int64; -1 when unseen)."""
+    weekly: pd.DataFrame
+    """One row per week (weeks start Monday 00:00 UTC) inside the covered span, gaps included.
+    Columns: ``week`` (date of the Monday), ``events`` (all usable events), ``interactions``
+    (counted events), ``active_users``, ``returning_users`` (active in this week and the one
+    before), ``new_users``, ``new_items``."""
+    implausible: np.ndarray
+    """Boolean per user: flagged as implausible by validation."""
+    counted_events: int
+    """Counted events in the audit."""
+    all_events: int
+    """Usable events of every type (impressions included)."""
+    first_ts: int
+    """Epoch seconds of the first counted interaction."""
+    last_ts: int
+    """Epoch seconds of the last counted interaction."""
+
+    @property
+    def n_users(self) -> int:
+        return int(self.user_labels.size)
+
+    @property
+    def n_items(self) -> int:
+        return int(self.item_labels.size)
+
+    def matrix(self, *, cap: int | None = None, exclude_implausible: bool = True) -> sp.csr_matrix:
+        """Binary user x item matrix of counted interactions.
+
+        Parameters
+        ----------
+        cap : int, optional
+            Keep only each user's ``cap`` most recent distinct items (by latest interaction),
+            which bounds co-occurrence cost at ``O(sum_u min(len_u, cap)^2)``.
+        exclude_implausible : bool
+            Leave the rows of implausible accounts empty.
+        """
+        pairs = self.pairs
+        if exclude_implausible and self.implausible.any():
+            pairs = pairs[~self.implausible[pairs["user_idx"].to_numpy()]]
+        if cap is not None:
+            pairs = _most_recent(pairs, cap)
+        data = np.ones(len(pairs), dtype=np.float32)
+        return sp.csr_matrix(
+            (data, (pairs["user_idx"].to_numpy(), pairs["item_idx"].to_numpy())),
+            shape=(self.n_users, self.n_items),
+        )
+
+
+def _most_recent(pairs: pd.DataFrame, cap: int) -> pd.DataFrame:
+    """Each user's ``cap`` most recent pairs (ties broken by item number, so it is stable)."""
+    order = np.lexsort(
+        (pairs["item_idx"].to_numpy(), -pairs["last_ts"].to_numpy(), pairs["user_idx"].to_numpy())
+    )
+    p = pairs.iloc[order]
+    users = p["user_idx"].to_numpy()
+    starts = np.r_[0, np.flatnonzero(np.diff(users)) + 1]
+    rank = np.arange(users.size) - np.repeat(starts, np.diff(np.r_[starts, users.size]))
+    return p[rank < cap]

@@ -1,0 +1,205 @@
+"""One audit, end to end: load -> validate -> aggregate -> profile -> evidence -> rules.
+
+This is the library entry point behind ``advisor audit``; a notebook user calls
+:func:`audit` and gets the same :class:`AuditResult` the command line renders.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import asdict, dataclass
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Callable
+
+import numpy as np
+import pandas as pd
+
+from advisor import __version__
+from advisor.aggregate import Aggregates, aggregate
+from advisor.config import AuditConfig
+from advisor.load import read_catalog, read_logs
+from advisor.load.model import ColumnDetection, InputFile
+from advisor.profile.bundle import Profile, build_profile, item_categories
+from advisor.rules.cold import ColdItems, ColdUsers, cold_items, cold_users
+from advisor.rules.engine import Decision, decide
+from advisor.rules.loader import load_rules
+from advisor.rules.metrics import profile_metrics
+from advisor.rules.model import RuleSet
+from advisor.validate import validate
+from advisor.validate.model import QualityReport
+
+#: Version of the JSON report layout; bump on any incompatible change.
+SCHEMA_VERSION = "1.0"
+
+#: Defaults for cold thresholds (common practice, no published source; REFERENCES: at least
+#: five interactions per user before user-personalised rows; 10-20 users per item).
+DEFAULT_MIN_USER_ITEMS = 5
+DEFAULT_MIN_ITEM_USERS = 10
+DEFAULT_MIN_NEIGHBOURS = 1
+
+
+@dataclass(frozen=True, slots=True)
+class RunInfo:
+    """How this audit was run."""
+
+    tool_version: str
+    """Version of the advisor package."""
+    started_utc: str
+    """When the run started (ISO-8601, UTC)."""
+    seconds: float
+    """Wall-clock duration of the audit, in seconds."""
+    as_of: str
+    """Audit date: events after it were set aside (ISO-8601, UTC)."""
+    seed: int
+    """Seed of every random step."""
+    config: dict
+    """Effective settings."""
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+
+@dataclass(frozen=True, slots=True)
+class AuditResult:
+    """Everything one audit found and decided."""
+
+    run: RunInfo
+    inputs: tuple[InputFile, ...]
+    """Log files read (with sizes and SHA-256), then the catalogue file if any."""
+    columns: ColumnDetection
+    """How the log's columns were mapped."""
+    catalog_columns: ColumnDetection | None
+    quality: QualityReport
+    quarantine: pd.DataFrame
+    """Rows set aside, with reasons (written beside the report)."""
+    profile: Profile
+    evidence: object | None
+    """Backtest, learning curve and neighbour reliability (None when switched off)."""
+    metrics: dict
+    """Every metric the rules can read, by name."""
+    rules: RuleSet
+    decision: Decision
+    cold_users: ColdUsers
+    cold_items: ColdItems
+
+    def to_dict(self) -> dict:
+        return {
+            "schema_version": SCHEMA_VERSION,
+            "run": self.run.to_dict(),
+            "inputs": {"files": [f.to_dict() for f in self.inputs],
+                       "columns": self.columns.to_dict(),
+                       "catalog_columns": None if self.catalog_columns is None
+                       else self.catalog_columns.to_dict()},
+            "quality": self.quality.to_dict(),
+            "verdict": self.decision.to_dict(),
+            "cold_users": self.cold_users.to_dict(),
+            "cold_items": self.cold_items.to_dict(),
+            "profile": self.profile.to_dict(),
+            "evidence": None if self.evidence is None else self.evidence.to_dict(),
+            "metrics": dict(sorted(self.metrics.items())),
+        }
+
+
+def audit(logs: str | Path, *, catalog: str | Path | None = None,
+          config: AuditConfig | None = None,
+          progress: Callable[[str], None] | None = None) -> AuditResult:
+    """Audit interaction logs (a file or a folder) and, optionally, a catalogue.
+
+    Parameters
+    ----------
+    logs : path
+        A log file (CSV, TSV, Parquet, JSON Lines, optionally gzip) or a folder of them.
+    catalog : path, optional
+        The catalogue file.
+    config : AuditConfig, optional
+        Settings; defaults when None.
+    progress : callable, optional
+        Called with a short step name as each stage starts.
+
+    Raises
+    ------
+    AdvisorError
+        A subclass naming the file, line, rule or key at fault and what to do.
+    """
+    config = config or AuditConfig()
+    say = progress or (lambda _step: None)
+    t0 = time.perf_counter()
+    started = datetime.now(timezone.utc).isoformat(timespec="seconds")
+    rules = load_rules(config.rules_file)
+
+    say("reading logs")
+    raw = read_logs(logs, config.columns)
+    raw_cat = read_catalog(catalog, config.catalog_columns) if catalog is not None else None
+    say("validating")
+    log = validate(raw, raw_cat, config)
+    say("aggregating")
+    agg = aggregate(log)
+    say("profiling")
+    profile = build_profile(log, agg, config)
+    metrics = profile_metrics(profile)
+    metrics["quality.quarantined_share"] = (
+        log.quality.rows_quarantined / log.quality.rows_read if log.quality.rows_read else None)
+
+    evidence = None
+    if config.backtest:
+        say("backtesting")
+        evidence = _evidence(agg, log, config, say)
+        metrics.update(evidence.metrics())
+
+    say("deciding")
+    decision = decide(rules, metrics)
+    threshold, source = _user_threshold(metrics)
+    as_of_s = int(log.as_of.timestamp())
+    users = cold_users(agg.user_items, agg.user_last_ts, as_of_s, threshold=threshold,
+                       threshold_source=source)
+    c = profile.cooccurrence
+    items = cold_items(agg.item_labels, agg.item_users, c.significant_neighbours,
+                       c.best_p, c.best_base, min_users=DEFAULT_MIN_ITEM_USERS,
+                       min_neighbours=DEFAULT_MIN_NEIGHBOURS, confidence=config.confidence,
+                       item_first_ts=agg.item_first_ts,
+                       catalog=None if log.catalog is None else log.catalog.items)
+    run = RunInfo(
+        tool_version=__version__,
+        started_utc=started,
+        seconds=round(time.perf_counter() - t0, 3),
+        as_of=log.as_of.isoformat(),
+        seed=config.seed,
+        config=_config_dict(config),
+    )
+    inputs = raw.files + ((raw_cat.file,) if raw_cat is not None else ())
+    return AuditResult(run, inputs, raw.columns,
+                       None if raw_cat is None else raw_cat.columns, log.quality,
+                       log.quarantine, profile, evidence, metrics, rules, decision, users, items)
+
+
+def _user_threshold(metrics: dict) -> tuple[int, str]:
+    """Distinct items before a user gets personalised rows: from the backtest when it found
+    the activity band where personalisation starts to win, else the common-practice default."""
+    found = metrics.get("evidence.min_history_for_lift")
+    if found is not None:
+        return int(found), "backtest"
+    return DEFAULT_MIN_USER_ITEMS, "default"
+
+
+def _evidence(agg: Aggregates, log, config: AuditConfig, say):
+    from advisor.evidence import gather_evidence
+
+    pairs = agg.pairs
+    if config.exclude_implausible and agg.implausible.any():
+        pairs = pairs[~agg.implausible[pairs["user_idx"].to_numpy()]]
+    pairs = pairs[["user_idx", "item_idx", "first_ts"]].rename(columns={"first_ts": "ts"})
+    cats = None
+    if log.catalog is not None and log.catalog.has_categories:
+        first = [c[0] if c else None for c in item_categories(agg, log)]
+        codes, _ = pd.factorize(pd.Series(first, dtype=object), use_na_sentinel=True)
+        cats = codes.astype(np.int64)
+    return gather_evidence(pairs, agg.n_users, agg.n_items, item_category=cats,
+                           seed=config.seed, max_test_users=config.backtest_users,
+                           confidence=config.confidence, progress=say)
+
+
+def _config_dict(config: AuditConfig) -> dict:
+    d = asdict(config)
+    d["events"] = [asdict(e) for e in config.events]
+    return d

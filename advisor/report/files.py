@@ -1,0 +1,165 @@
+"""Report files: JSON, CSV and the quarantine file, written atomically into one folder.
+
+Each file is first written to a temporary name in the output folder and then moved over the
+final name with :func:`os.replace`, which is atomic on POSIX and Windows; an interrupted or
+repeated run never leaves a half-written report. Only this module writes report files.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import io
+import json
+import math
+import os
+import tempfile
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from advisor.errors import OutputError
+from advisor.pipeline import AuditResult
+
+JSON_NAME = "audit.json"
+EDITORIAL_NAME = "editorial_placement.csv"
+COLD_USERS_NAME = "cold_users_by_band.csv"
+QUARANTINE_NAME = "quarantine.csv"
+TEXT_NAME = "audit.txt"
+
+#: Leading characters that make spreadsheets evaluate a cell (OWASP, "CSV Injection").
+_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+
+
+def neutralise_cell(value):
+    """Prefix a text cell that a spreadsheet would evaluate with a single quote.
+
+    Notes
+    -----
+    Follows the OWASP guidance on CSV injection: cells beginning with ``=``, ``+``, ``-``,
+    ``@``, tab or carriage return are prefixed with ``'``. Numbers are left alone (a
+    negative number is data, not a formula).
+
+    Examples
+    --------
+    >>> neutralise_cell("=HYPERLINK(1)"), neutralise_cell(-3), neutralise_cell("Tart")
+    ("'=HYPERLINK(1)", -3, 'Tart')
+    """
+    if isinstance(value, str) and value.startswith(_FORMULA_START):
+        return "'" + value
+    return value
+
+
+def _json_default(o):
+    if isinstance(o, np.integer):
+        return int(o)
+    if isinstance(o, np.floating):
+        return None if math.isnan(o) else float(o)
+    if isinstance(o, np.bool_):
+        return bool(o)
+    if isinstance(o, np.ndarray):
+        return o.tolist()
+    if isinstance(o, (pd.Timestamp, _dt.datetime, _dt.date)):
+        return o.isoformat()
+    if o is pd.NaT or o is pd.NA:
+        return None
+    if isinstance(o, (set, tuple)):
+        return list(o)
+    raise TypeError(f"cannot put {type(o).__name__} into JSON")
+
+
+def _nan_to_none(x):
+    if isinstance(x, float) and math.isnan(x):
+        return None
+    if isinstance(x, dict):
+        return {k: _nan_to_none(v) for k, v in x.items()}
+    if isinstance(x, (list, tuple)):
+        return [_nan_to_none(v) for v in x]
+    return x
+
+
+def to_json(result: AuditResult) -> str:
+    """The JSON report (strict JSON: NaN becomes null)."""
+    return json.dumps(_nan_to_none(result.to_dict()), default=_json_default, indent=2,
+                      allow_nan=False, ensure_ascii=False)
+
+
+def _csv(df: pd.DataFrame) -> str:
+    buf = io.StringIO()
+    safe = df.copy()
+    for col in safe.columns:
+        if safe[col].dtype == object or pd.api.types.is_string_dtype(safe[col]):
+            safe[col] = safe[col].map(neutralise_cell)
+    safe.to_csv(buf, index=False, lineterminator="\n")
+    return buf.getvalue()
+
+
+def editorial_csv(result: AuditResult) -> str:
+    """The full editorial placement list as CSV."""
+    df = result.cold_items.placement.copy()
+    for col in ("added", "first_seen"):
+        df[col] = df[col].map(lambda t: None if t is None or t is pd.NaT or t != t
+                              else pd.Timestamp(t).isoformat())
+    return _csv(df)
+
+
+def cold_users_csv(result: AuditResult) -> str:
+    """The cold-user summary by activity band as CSV."""
+    df = result.cold_users.bands.copy()
+    df["max_items"] = df["max_items"].map(lambda v: "" if v != v else int(v))
+    return _csv(df)
+
+
+def quarantine_csv(result: AuditResult) -> str:
+    """Rows set aside, each with its reason, file and line."""
+    return _csv(result.quarantine)
+
+
+def write_reports(result: AuditResult, out_dir: str | Path, *, text: str | None = None) -> list[str]:
+    """Write every report file into ``out_dir`` atomically; return the names written.
+
+    Raises
+    ------
+    OutputError
+        If the folder cannot be created or written (read-only, disk full).
+    """
+    out = Path(out_dir)
+    files = {
+        JSON_NAME: to_json(result),
+        EDITORIAL_NAME: editorial_csv(result),
+        COLD_USERS_NAME: cold_users_csv(result),
+        QUARANTINE_NAME: quarantine_csv(result),
+    }
+    if text is not None:
+        files[TEXT_NAME] = text
+    write_atomically(out, files)
+    return list(files)
+
+
+def write_atomically(out: Path, files: dict[str, str]) -> None:
+    """Write all ``files`` (name -> text) into ``out``; all land or none is replaced."""
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise OutputError(f"cannot create the output folder {out} ({exc.strerror}); "
+                          "choose another folder with --out") from None
+    temps: list[tuple[str, Path]] = []
+    try:
+        for name, content in files.items():
+            fd, tmp = tempfile.mkstemp(prefix=f".{name}.", suffix=".tmp", dir=out)
+            temps.append((name, Path(tmp)))
+            with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
+                fh.write(content)
+                fh.flush()
+                os.fsync(fh.fileno())
+        for name, tmp in temps:
+            os.replace(tmp, out / name)
+    except OSError as exc:
+        for _, tmp in temps:
+            tmp.unlink(missing_ok=True)
+        raise OutputError(f"cannot write reports into {out} ({exc.strerror}); check that the "
+                          "folder is writable and the disk has space, or choose --out") from None
+    except BaseException:
+        for _, tmp in temps:
+            tmp.unlink(missing_ok=True)
+        raise
