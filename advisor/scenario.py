@@ -158,7 +158,8 @@ _HOURS = np.array([2, 1, 1, 1, 1, 1, 2, 4, 5, 5, 5, 6, 7, 6, 5, 5, 6, 8, 11, 13,
                   dtype=float)
 _RATING_IN = np.array([0.02, 0.04, 0.12, 0.37, 0.45])
 _RATING_OUT = np.array([0.08, 0.15, 0.32, 0.30, 0.15])
-_BAD_TS = ("hour25", "zero", "undefined", "month13", "day32", "dmy")
+# Each is invalid for any date parser, lenient or strict (no day-first guessing can save it).
+_BAD_TS = ("hour25", "zero", "undefined", "month13", "day32", "feb30")
 
 
 @dataclass(frozen=True, slots=True)
@@ -219,7 +220,7 @@ class ScenarioSummary:
     items: int
     """Classes in the catalogue."""
     items_never_played: int
-    """Catalogue classes with no play in the whole log."""
+    """Catalogue classes never played by a genuine user (the bot and empty ids not counted)."""
     users: int
     """Distinct non-empty user ids in the log, the bot included."""
     events: int
@@ -559,7 +560,7 @@ def _bad_timestamp(good: str, style: str) -> str:
         return good[:5] + "13" + good[7:]
     if style == "day32":
         return good[:8] + "32" + good[10:]
-    return f"{good[8:10]}/{good[5:7]}/{good[:4]} {good[11:16]}"  # dmy
+    return good[:5] + "02-30" + good[10:]  # feb30
 
 
 def _iso(start: dt.date, seconds: np.ndarray) -> np.ndarray:
@@ -600,6 +601,49 @@ def _gzip_bytes(raw: bytes) -> bytes:
 def _week_name(monday: dt.date) -> str:
     year, week, _ = monday.isocalendar()
     return f"{year}-w{week:02d}.csv.gz"
+
+
+def _assemble(rows: _Rows, plan: _Plan, cat: _Catalog, start: dt.date, weeks: int,
+              gap_day: int) -> list[list[list[str]]]:
+    """Format every row as CSV fields, week by week, in time order, problems planted."""
+    # Genuine rows are positions 0..n-1 and bot rows n..; one stable sort by time merges them
+    # (ties keep generation order, so a session's events stay in order). Duplicates and
+    # unknown-class rows are written right after their source row.
+    bot = plan.bot
+    all_ts = np.concatenate([np.asarray(rows.ts), np.asarray(bot.ts)])
+    merged = np.argsort(all_ts, kind="stable")
+    user = np.concatenate([rows.user, bot.user])
+    item = np.concatenate([rows.item, bot.item])
+    kind = np.concatenate([rows.kind, bot.kind])
+    value = rows.value + bot.value
+    session = np.concatenate([rows.session, bot.session])
+    stamp = _iso(start, all_ts)
+    horizon = 86400 * 7 * weeks
+
+    def fmt(pos: int, item_id: str | None = None) -> list[str]:
+        ts = str(stamp[pos])
+        if pos in plan.bad_ts:
+            ts = _bad_timestamp(ts, plan.bad_ts[pos])
+        uid = "" if pos in plan.empty_user else f"u{int(user[pos]) + 1:06d}"
+        iid = item_id if item_id is not None else cat.ids[int(item[pos])]
+        return [uid, iid, ts, _EVENT_TYPES[int(kind[pos])], value[pos],
+                f"s{int(session[pos]):06d}"]
+
+    per_week: list[list[list[str]]] = [[] for _ in range(weeks)]
+    for pos in merged.tolist():
+        t = int(all_ts[pos])
+        # Sessions that run past the gap day's midnight or past the end lose those events,
+        # as a real outage or the export cut-off would.
+        if t // 86400 == gap_day or t >= horizon:
+            continue
+        bucket = per_week[t // (7 * 86400)]
+        row = fmt(pos)
+        bucket.append(row)
+        if pos in plan.duplicate:
+            bucket.append(list(row))
+        if pos in plan.unknown_after:
+            bucket.append(fmt(pos, plan.unknown_after[pos]))
+    return per_week
 
 
 def _readme(s: ScenarioSummary, weeks: int) -> str:
@@ -755,44 +799,7 @@ def generate_scenario(out_dir: str | os.PathLike, *, seed: int = DEFAULT_SEED,
     n_users = len(users.arrival_week)
     rows = _simulate(r_sim, cat, users, weeks, gap_day)
     plan = _plan_problems(r_plant, rows, cat, n_users, weeks, gap_day)
-    bot = plan.bot
-
-    # Merge genuine and bot rows into one time-ordered list of row positions. Genuine rows are
-    # numbered 0..n-1, bot rows n..; duplicates and unknown-item rows follow their source row.
-    all_ts = np.concatenate([np.asarray(rows.ts), np.asarray(bot.ts)])
-    merged = np.argsort(all_ts, kind="stable")
-    user = np.concatenate([rows.user, bot.user])
-    item = np.concatenate([rows.item, bot.item])
-    kind = np.concatenate([rows.kind, bot.kind])
-    value = rows.value + bot.value
-    session = np.concatenate([rows.session, bot.session])
-    stamp = _iso(start, all_ts)
-    horizon = 86400 * 7 * weeks
-
-    def fmt(pos: int, item_id: str | None = None) -> list[str]:
-        ts = str(stamp[pos])
-        if pos in plan.bad_ts:
-            ts = _bad_timestamp(ts, plan.bad_ts[pos])
-        uid = "" if pos in plan.empty_user else f"u{int(user[pos]) + 1:06d}"
-        iid = item_id if item_id is not None else cat.ids[int(item[pos])]
-        return [uid, iid, ts, _EVENT_TYPES[int(kind[pos])], value[pos],
-                f"s{int(session[pos]):06d}"]
-
-    per_week: list[list[list[str]]] = [[] for _ in range(weeks)]
-    for pos in merged.tolist():
-        t = int(all_ts[pos])
-        # Sessions that run past the gap day's midnight or past the end lose those events,
-        # as a real outage or the export cut-off would.
-        if t // 86400 == gap_day or t >= horizon:
-            continue
-        bucket = per_week[t // (7 * 86400)]
-        row = fmt(pos)
-        bucket.append(row)
-        if pos in plan.duplicate:
-            bucket.append(list(row))
-        if pos in plan.unknown_after:
-            bucket.append(fmt(pos, plan.unknown_after[pos]))
-
+    per_week = _assemble(rows, plan, cat, start, weeks, gap_day)
     out = Path(out_dir)
     events_dir = out / "events"
     names = [_week_name(start + dt.timedelta(days=7 * w)) for w in range(weeks)]
@@ -815,7 +822,7 @@ def generate_scenario(out_dir: str | os.PathLike, *, seed: int = DEFAULT_SEED,
     played = set()
     new_users, active, seen_users = [], [], set()
     bot_id = f"u{n_users + 1:06d}"
-    event_paths = []
+    event_paths: list[str] = []
     try:
         _atomic_write(out / "catalog.csv",
                       _csv_bytes(["item_id", "title", "categories", "added_at"], cat_rows))
@@ -827,7 +834,7 @@ def generate_scenario(out_dir: str | os.PathLike, *, seed: int = DEFAULT_SEED,
             active.append(len(week_users))
             new_users.append(len(week_users - seen_users))
             seen_users |= week_users
-            played.update(r[1] for r in bucket if r[3] == "play")
+            played.update(r[1] for r in bucket if r[3] == "play" and r[0] not in ("", bot_id))
     except OSError as exc:
         raise OutputError(f"cannot write the scenario into {out} ({exc}); choose a writable "
                           "--out folder") from None
