@@ -26,10 +26,10 @@ __all__ = [
     "fit_category_popularity",
     "fit_ease",
     "fit_item_knn",
-    "fit_latent",
     "fit_popularity",
     "fit_pure_svd",
     "fit_recent_popularity",
+    "latent_fitter",
 ]
 
 RECENT_DAYS = 28
@@ -247,10 +247,20 @@ def fit_pure_svd(train: sp.csr_matrix, *, factors: int = SVD_FACTORS,
     return Candidate("latent", f"PureSVD ({f} factors)", True, score)
 
 
-def fit_latent(train: sp.csr_matrix, *, seed: int,
-               max_ease_items: int = EASE_MAX_ITEMS) -> Candidate:
-    """The latent-factor candidate: EASE when few enough items have data, else PureSVD."""
+def latent_fitter(train: sp.csr_matrix, *, seed: int,
+                  max_ease_items: int = EASE_MAX_ITEMS) -> Callable[[sp.csr_matrix], Candidate]:
+    """Choose the latent-factor model once, from the full training data.
+
+    EASE when at most ``max_ease_items`` items have training data, else PureSVD. The choice is
+    made once so that refits on subsamples (the learning curve) use the same model.
+
+    Examples
+    --------
+    >>> x = sp.csr_matrix(np.eye(3, dtype=np.float32))
+    >>> latent_fitter(x, seed=0)(x).method
+    'EASE (lambda=100) on 3 items'
+    """
     active = int((np.diff(train.tocsc().indptr) > 0).sum())
     if active <= max_ease_items or min(train.shape) < 3:
-        return fit_ease(train)
-    return fit_pure_svd(train, seed=seed)
+        return fit_ease
+    return lambda t: fit_pure_svd(t, seed=seed)

@@ -276,6 +276,8 @@ class NeighbourReliability:
     """Users split into the two halves."""
     items_compared: int
     """Items with enough support in both halves to be compared."""
+    top_k_overlap: float | None
+    """Mean Jaccard overlap of the two halves' top-k neighbour sets, 0-1 (descriptive)."""
     half_agreement: float | None
     """Agreement between the halves (a correlation, -1..1)."""
     reliability: float | None
@@ -389,6 +391,8 @@ class Evidence:
         m["evidence.users_needed_for_target"] = get(lc, "users_needed")
         r = self.reliability
         m["evidence.neighbour_reliability"] = get(r, "reliability")
+        m["evidence.neighbour_half_agreement"] = get(r, "half_agreement")
+        m["evidence.neighbour_top_k_overlap"] = get(r, "top_k_overlap")
         m["evidence.users_needed_for_reliability_0_8"] = (
             get(r, "users_needed") if r is not None and r.target == 0.8 else None)
         return m
