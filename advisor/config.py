@@ -241,6 +241,17 @@ def apply_config(data: dict, cfg: AuditConfig, where: str = "config") -> AuditCo
                     f"{where}: events.{name}.value is {kind!r}; expected one of "
                     f"{', '.join(VALUE_KINDS)}"
                 )
+            bounds = {}
+            for key, prev in (("min", old.value_min), ("max", old.value_max)):
+                v = spec.get(key, prev)
+                bounds[key] = None if v is None else float(
+                    _expect(v, (int, float), f"events.{name}.{key}", where))
+            if (bounds["min"] is not None and bounds["max"] is not None
+                    and bounds["min"] > bounds["max"]):
+                raise ConfigError(
+                    f"{where}: events.{name}: min {bounds['min']} is above max {bounds['max']}; "
+                    "swap them or widen the range"
+                )
             rules[name.lower()] = EventRule(
                 name=name,
                 counts=_expect(spec.get("counts", old.counts), (bool,), f"events.{name}.counts",
@@ -248,8 +259,8 @@ def apply_config(data: dict, cfg: AuditConfig, where: str = "config") -> AuditCo
                 weight=float(_expect(spec.get("weight", old.weight), (int, float),
                                      f"events.{name}.weight", where)),
                 value_kind=kind,
-                value_min=spec.get("min", old.value_min),
-                value_max=spec.get("max", old.value_max),
+                value_min=bounds["min"],
+                value_max=bounds["max"],
             )
         cfg = replace(cfg, events=tuple(rules.values()))
     if "audit" in data:
@@ -261,6 +272,8 @@ def apply_config(data: dict, cfg: AuditConfig, where: str = "config") -> AuditCo
             want = type(getattr(defaults, k))
             types = (int, float) if want is float else (str,) if want is type(None) else (want,)
             kw[k] = _expect(v, types, f"audit.{k}", where)
+            if want is float:
+                kw[k] = float(v)
         cfg = replace(cfg, **kw)
     validate_config(cfg)
     return cfg
@@ -279,3 +292,12 @@ def validate_config(cfg: AuditConfig) -> None:
             f"implausible_quantile must be between 0.5 and 1, got {cfg.implausible_quantile}")
     if cfg.backtest_users < 10:
         raise ConfigError(f"backtest_users must be at least 10, got {cfg.backtest_users}")
+    if cfg.implausible_factor < 1.0:
+        raise ConfigError(
+            f"implausible_factor must be at least 1 (a multiple of the activity quantile), got "
+            f"{cfg.implausible_factor}")
+    if cfg.max_events_per_hour < 1:
+        raise ConfigError(
+            f"max_events_per_hour must be at least 1, got {cfg.max_events_per_hour}")
+    if cfg.seed < 0:
+        raise ConfigError(f"seed must be a non-negative integer, got {cfg.seed}")

@@ -30,7 +30,7 @@ class ActivityProfile:
     pooled over the last (up to) four week pairs; None with fewer than two weeks."""
 
     def at_least(self, m: int) -> int:
-        """Users with at least ``m`` distinct items (computed for any m)."""
+        """Users with at least ``m`` distinct items; ``m`` must be one of ``levels``."""
         return self.users_at_least[self.levels.index(m)]
 
     def to_dict(self) -> dict:

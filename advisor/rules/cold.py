@@ -105,6 +105,8 @@ def _jsonable(row: dict) -> dict:
             out[k] = int(v)
         elif isinstance(v, (np.floating,)):
             out[k] = float(v)
+        elif isinstance(v, pd.Timestamp):
+            out[k] = v.isoformat()
         else:
             out[k] = v
     return out
@@ -219,11 +221,13 @@ def cold_items(item_labels: np.ndarray, item_users: np.ndarray, neighbours: np.n
     fts = np.asarray(item_first_ts)[idx]
     df["first_seen"] = pd.to_datetime(np.where(fts >= 0, fts, 0), unit="s", utc=True).where(fts >= 0)
     df["title"] = None
-    df["added"] = pd.NaT
+    # A typed, tz-aware column even without a catalogue: a bare NaT column is naive, and the
+    # recency sort below needs ``.dt`` on a tz-aware series.
+    df["added"] = pd.Series(pd.NaT, index=df.index, dtype="datetime64[ns, UTC]")
     if catalog is not None:
         meta = catalog.set_index("item")[["title", "added"]]
         df["title"] = df["item"].map(meta["title"])
-        df["added"] = df["item"].map(meta["added"])
+        df["added"] = pd.to_datetime(df["item"].map(meta["added"]), utc=True)
     df["reason"] = np.select(
         [df["users"] == 0, df["users"] < min_users],
         ["never consumed", "fewer than %d distinct users" % min_users],

@@ -60,11 +60,16 @@ def merge(base: RuleSet, text: str, where: str) -> RuleSet:
         raise RulesError(f"{where}: [[tier]] tables cannot be changed by a rules file; the tier "
                          "ladder is fixed. Remove the [[tier]] tables.")
     rules = {r.id: r for r in base.rules}
+    given = set()
     for i, raw in enumerate(_list(data, "rule", where)):
         rid = raw.get("id")
         if not isinstance(rid, str) or not rid:
             raise RulesError(f"{where}: rule #{i + 1} has no 'id'; every rule needs a string id")
         _keys(raw, _RULE_KEYS, where, f"rule '{rid}'")
+        if rid in given:
+            raise RulesError(f"{where}: rule id '{rid}' appears twice; keep one [[rule]] table "
+                             "per id")
+        given.add(rid)
         if rid in rules:
             old = rules[rid].to_dict()
             old.update(raw)
@@ -94,7 +99,10 @@ def _parse(text: str, where: str, *, origin: str, partial: bool) -> RuleSet:
                 raise RulesError(f"{where}: tier '{raw.get('id')}': '{k}' must be a string")
         tiers.append(Tier(raw["id"], raw["name"], raw["summary"]))
     surfaces = [_surface(raw, where) for raw in _list(data, "surface", where)]
-    rules = [_rule({**raw, "origin": origin}, where) for raw in _list(data, "rule", where)]
+    rules = []
+    for raw in _list(data, "rule", where):
+        _keys(raw, _RULE_KEYS, where, f"rule '{raw.get('id')}'")
+        rules.append(_rule({**raw, "origin": origin}, where))
     seen = set()
     for r in rules:
         if r.id in seen:
