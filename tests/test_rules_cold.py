@@ -65,7 +65,9 @@ def test_cold_users_bands_count_users_and_active_users():
     assert b["active_users"].tolist() == [1, 0, 3, 0, 0, 1]
     assert b["max_items"].isna().tolist() == [False] * 5 + [True]
     cold = dict(zip(b["band"], b["cold"]))
-    assert cold["1"] and cold["2"] and not cold["6-10"] and not cold["21+"]
+    assert cold["1"] and cold["2"] and not cold["3-5"] and not cold["6-10"] and not cold["21+"]
+    # threshold 5: of the band 3-5, only the active users with 3 or 4 items are cold
+    assert b["cold_active_users"].tolist() == [1, 0, 2, 0, 0, 0]
 
 
 def test_cold_users_window_follows_active_days():
@@ -193,7 +195,10 @@ def test_cold_items_estimates_use_own_pair_or_the_typical_pair():
     assert tab.loc["old_pop", "more_users_needed"] == _sm_needed(0.5, 0.2, 8, 10) == 3
     assert tab.loc["never", "estimate_basis"] == "typical pair"
     assert tab.loc["never", "more_users_needed"] == _sm_needed(0.5, 0.2, 0, 10) == 11
-    assert tab.loc["noneigh", "more_users_needed"] == 0  # 15 users already exceed 11
+    # 15 users already exceed the estimate of 11 and still no neighbour: no number, not a zero.
+    assert np.isnan(tab.loc["noneigh", "more_users_needed"])
+    assert tab.loc["noneigh", "estimate_basis"] == (
+        "estimate reached, still no neighbour above chance")
 
 
 def test_cold_items_without_a_catalogue_rank_by_first_interaction():

@@ -41,19 +41,19 @@ def evidence_tables(ev: Evidence) -> list:
                 + s.reason)
     out.append(head)
 
-    t = Table(title=f"Candidates (NDCG@{ev.k}, recall@{ev.k}, coverage and long-tail share "
-                    "of recommendations)", box=box.SIMPLE_HEAD, title_justify="left")
-    for col in ("Candidate", f"NDCG@{ev.k}", "interval", f"Recall@{ev.k}", "Coverage",
-                "Long tail", f"Lift vs popularity", "interval", "p", "d_z"):
+    t = Table(title=f"Candidates, ranked over the full catalogue (k = {ev.k}; intervals: "
+                    f"{ev.confidence:.0%} bootstrap)", box=box.SIMPLE_HEAD, title_justify="left",
+              padding=(0, 1), collapse_padding=True, pad_edge=False, show_edge=False)
+    for col in ("Candidate", f"NDCG@{ev.k}", f"Recall@{ev.k}", "Cover",
+                "Lift vs popularity", "p", "d_z"):
         t.add_column(col, justify="left" if col == "Candidate" else "right", no_wrap=True)
     for c in ev.candidates:
         cmp = ev.comparison(c.name)
         t.add_row(
             c.name + (" *" if c.name == ev.best_candidate else ""),
-            _num(c.ndcg), _ci(c.ndcg_low, c.ndcg_high), _num(c.recall), _num(c.coverage, 2),
-            _num(c.long_tail_share, 2),
-            "-" if cmp is None else f"{cmp.lift:+.3f}",
-            "" if cmp is None else _ci(cmp.lift_low, cmp.lift_high),
+            f"{_num(c.ndcg)} {_ci(c.ndcg_low, c.ndcg_high)}", _num(c.recall),
+            _num(c.coverage, 2),
+            "-" if cmp is None else f"{cmp.lift:+.3f} {_ci(cmp.lift_low, cmp.lift_high)}",
             "" if cmp is None else _p(cmp.p_value),
             "" if cmp is None or cmp.effect_size is None else f"{cmp.effect_size:.2f}",
         )
@@ -62,8 +62,9 @@ def evidence_tables(ev: Evidence) -> list:
     if lvi is not None:
         out.append(Text(f"Latent vs item neighbours: {lvi.lift:+.3f} "
                         f"{_ci(lvi.lift_low, lvi.lift_high)}, p {_p(lvi.p_value)}. "
-                        "(* best personalised candidate; p from a paired t-test on per-user "
-                        "NDCG; d_z = mean difference / its standard deviation.)"))
+                        "(* best personalised candidate; Cover: share of the catalogue recommended; "
+                        "p: paired t-test "
+                        "on per-user NDCG; d_z: mean difference / its standard deviation.)"))
 
     if ev.bands:
         b = Table(title=f"Lift of {ev.best_candidate} over popularity by user history "
@@ -97,7 +98,8 @@ def evidence_tables(ev: Evidence) -> list:
             line.append(f"Lift per doubling of users: {lc.slope:+.4f} "
                         f"{_ci(lc.slope_low, lc.slope_high, 4)}; "
                         + ("still climbing. " if lc.still_climbing else "not clearly climbing. "))
-        line.append(lc.reason)
+        reason = lc.reason.strip()
+        line.append(reason[:1].upper() + reason[1:] + ("" if reason.endswith(".") else "."))
         if lc.projections:
             line.append(" Projected lift (extrapolation): " + "; ".join(
                 f"{pr.train_users:,} users {pr.lift:+.3f} [{pr.low:.3f}, {pr.high:.3f}]"

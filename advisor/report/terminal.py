@@ -91,7 +91,7 @@ def _headline(r: AuditResult) -> Panel:
                  box=box.ROUNDED)
 
 
-def _rule_cell(results) -> str:
+def _rule_cell(results) -> Text:
     parts = []
     for res in results:
         rule = res.rule
@@ -99,7 +99,7 @@ def _rule_cell(results) -> str:
             continue
         parts.append(f"[{OUTCOME_MARK[res.outcome]}] {rule.metric} {fmt(res.value)} "
                      f"(needs {rule.op} {fmt(rule.threshold)})")
-    return "\n".join(parts) or "-"
+    return Text("\n".join(parts) or "-")
 
 
 def _ladder(r: AuditResult) -> Table:
@@ -107,10 +107,10 @@ def _ladder(r: AuditResult) -> Table:
               expand=False)
     t.add_column("Tier", no_wrap=True)
     t.add_column("Verdict", no_wrap=True)
-    t.add_column("Blocking rules: measured vs needed  ([ok] pass, [~] borderline, [x] fail, "
-                 "[?] not measured)", overflow="fold")
+    t.add_column(Text("Blocking rules: measured (needed)   [ok] pass  [~] borderline  [x] fail  "
+                      "[?] not measured"), overflow="fold")
     for v in r.decision.tiers:
-        t.add_row(v.name, status(v.status), _rule_cell(v.results))
+        t.add_row(Text(v.name), status(v.status), _rule_cell(v.results))
     return t
 
 
@@ -125,7 +125,7 @@ def _surfaces(r: AuditResult) -> Table:
             if res.rule.severity == "blocking" and res.outcome not in ("pass", "skipped"):
                 why.append(res.rule.fix or res.rule.rationale)
         why += [x for x in v.reasons if x.startswith("tier ")]
-        t.add_row(v.name, status(v.status), "\n".join(dict.fromkeys(why)) or "ok")
+        t.add_row(Text(v.name), status(v.status), Text("\n".join(dict.fromkeys(why)) or "ok"))
     return t
 
 
@@ -146,11 +146,12 @@ def _profile(r: AuditResult) -> Table:
     t.add_row("Long tail", f"top 20% of items hold {pct(lt.top20_share)} of interactions; "
                            f"Gini {lt.gini:.3f} (population form)")
     c = p.cooccurrence
+    k3 = c.k_thresholds.index(3) if 3 in c.k_thresholds else 0
     t.add_row("Co-occurrence",
-              f"{fmt(c.pairs_significant)} of {fmt(c.pairs_scored)} scored pairs above chance; "
-              + ", ".join(f">= {k} neighbours: {pct(si)} of items, {pct(sx)} of interactions"
-                          for k, si, sx in zip(c.k_thresholds, c.item_share, c.interaction_share))
-              + f"; histories capped at {p.history_cap} most recent items"
+              f"{fmt(c.pairs_significant)} of {fmt(c.pairs_scored)} scored item pairs above "
+              f"chance; items with >= {c.k_thresholds[k3]} significant neighbours: "
+              f"{pct(c.item_share[k3])} of items, {pct(c.interaction_share[k3])} of "
+              f"interactions; histories capped at the {p.history_cap} most recent items"
               + (f"; {p.users_excluded} implausible accounts left out" if p.users_excluded else ""))
     if p.ratings is not None:
         rt = p.ratings
@@ -164,33 +165,39 @@ def _profile(r: AuditResult) -> Table:
     return t
 
 
-def _quality(r: AuditResult) -> Table:
+def _quality(r: AuditResult) -> Group:
     q = r.quality
-    t = Table(title=f"Data quality: {fmt(q.rows_read)} rows read, {fmt(q.rows_used)} used, "
-                    f"{fmt(q.rows_quarantined)} set aside, {fmt(q.duplicates_dropped)} duplicates "
-                    f"dropped; timestamps read as {q.timestamp_format}",
-              box=box.SIMPLE_HEAD, title_justify="left")
-    t.add_column("Problem", no_wrap=True)
-    t.add_column("Count", justify="right")
-    t.add_column("First at", overflow="fold")
-    t.add_column("What it means / what to do", overflow="fold")
-    for i in q.issues[:8]:
-        where = f"{i.first_file}:{i.first_line}" if i.first_file else "-"
-        t.add_row(i.code, f"{fmt(i.count)} {i.unit}", where, i.message)
+    head = Text()
+    head.append("Data quality: ", style="bold")
+    head.append(f"{fmt(q.rows_read)} rows read, {fmt(q.rows_used)} used, "
+                f"{fmt(q.rows_quarantined)} set aside (quarantine.csv), "
+                f"{fmt(q.duplicates_dropped)} exact duplicates dropped; timestamps read as "
+                f"{q.timestamp_format}.")
+    lines = [head]
+    shown = q.issues[:8]
+    for i in shown:
+        line = Text("- ")
+        line.append(f"{i.code}", style="bold")
+        line.append(f" ({fmt(i.count)} {i.unit}, {i.severity}): ")
+        line.append(i.message)
+        lines.append(line)
     if not q.issues:
-        t.add_row("none found", "", "", "")
-    if len(q.issues) > 8:
-        t.add_row(f"... {len(q.issues) - 8} more in the JSON report", "", "", "")
-    return t
+        lines.append(Text("- no problems found"))
+    if len(q.issues) > len(shown):
+        lines.append(Text(f"- ... {len(q.issues) - len(shown)} more in audit.json"))
+    return Group(*lines)
 
 
 def _cold(r: AuditResult, rows: int) -> Group:
     u, it = r.cold_users, r.cold_items
     head = Text()
     head.append("Cold users: ", style="bold")
+    origin = ("the backtest: the first history band where personalisation beat popularity"
+              if u.threshold_source == "backtest" else "common practice, no published source")
     head.append(f"{fmt(u.cold_active_users)} of {fmt(u.active_users)} users active in the last "
-                f"{u.active_days} days ({pct(u.cold_share)}) have fewer than {u.threshold} items "
-                f"(threshold from {'the backtest' if u.threshold_source == 'backtest' else 'common practice'}).\n")
+                f"{u.active_days} days ({pct(u.cold_share)}) are below the personalisation "
+                f"threshold of {u.threshold} distinct item{'s' if u.threshold != 1 else ''} "
+                f"({origin}).\n")
     head.append("Cold items: ", style="bold")
     head.append(f"{fmt(it.cold)} of {fmt(it.catalogue_items)} ({pct(it.share)}): "
                 f"{fmt(it.never_seen)} never consumed, {fmt(it.low_support)} with fewer than "
@@ -206,10 +213,10 @@ def _cold(r: AuditResult, rows: int) -> Group:
     for row in it.placement.head(rows).itertuples():
         added = row.added if row.added == row.added and row.added is not None else row.first_seen
         added_s = "-" if added is None or added != added else str(added)[:10]
-        t.add_row(str(row.rank), str(row.item), "" if row.title is None or row.title != row.title
-                  else str(row.title), added_s, fmt(row.users), row.reason,
-                  "?" if row.more_users_needed != row.more_users_needed
-                  else fmt(row.more_users_needed))
+        title = "" if row.title is None or row.title != row.title else str(row.title)
+        need = row.more_users_needed
+        t.add_row(str(row.rank), Text(str(row.item)), Text(title), added_s, fmt(row.users),
+                  Text(row.reason), "?" if need != need else fmt(need))
     return Group(head, t)
 
 

@@ -37,7 +37,8 @@ class ColdUsers:
     """``cold_active_users / active_users`` (None with no active user)."""
     bands: pd.DataFrame
     """Per activity band: ``band``, ``min_items``, ``max_items`` (NaN: no upper end), ``users``,
-    ``active_users``, ``cold`` (bool: the band is below the threshold)."""
+    ``active_users``, ``cold_active_users`` (active users of the band below the threshold) and
+    ``cold`` (bool: the whole band is below the threshold)."""
 
     def to_dict(self) -> dict:
         return {
@@ -118,13 +119,15 @@ def cold_users(user_items: np.ndarray, user_last_ts: np.ndarray, as_of_ts: int, 
     """Count active users below ``threshold`` distinct items, with a summary by band."""
     active = user_last_ts > as_of_ts - active_days * DAY
     rows = []
+    below = user_items < threshold
     for lo, hi in bands:
         in_band = (user_items >= lo) & (user_items <= (hi if hi is not None else np.inf))
         label = f"{lo}" if hi == lo else (f"{lo}-{hi}" if hi is not None else f"{lo}+")
         rows.append({"band": label, "min_items": lo,
                      "max_items": float("nan") if hi is None else hi,
                      "users": int(in_band.sum()), "active_users": int((in_band & active).sum()),
-                     "cold": bool(lo < threshold)})
+                     "cold_active_users": int((in_band & active & below).sum()),
+                     "cold": bool(hi is not None and hi < threshold)})
     n_active = int(active.sum())
     cold_active = int((active & (user_items < threshold)).sum())
     return ColdUsers(
@@ -190,6 +193,15 @@ def more_users_needed(support: np.ndarray, best_p: np.ndarray, best_base: np.nda
     return needed, basis
 
 
+def _reached_but_cold(needed: np.ndarray, basis: np.ndarray, neighbours: np.ndarray,
+                      min_neighbours: int) -> None:
+    """An item past its estimate that still lacks neighbours gets no number, not a zero:
+    the estimate (a normal approximation) was too optimistic for it. Edits in place."""
+    stuck = (needed == 0) & (neighbours < min_neighbours)
+    needed[stuck] = np.nan
+    basis[stuck] = "estimate reached, still no neighbour above chance"
+
+
 def cold_items(item_labels: np.ndarray, item_users: np.ndarray, neighbours: np.ndarray,
                best_p: np.ndarray, best_base: np.ndarray, *, min_users: int,
                min_neighbours: int, confidence: float, item_first_ts: np.ndarray,
@@ -210,6 +222,7 @@ def cold_items(item_labels: np.ndarray, item_users: np.ndarray, neighbours: np.n
     needed, basis = more_users_needed(users, best_p, best_base, min_users=min_users,
                                       confidence=confidence, pooled_p=pooled_p,
                                       pooled_base=pooled_b)
+    _reached_but_cold(needed, basis, neigh, min_neighbours)
     idx = np.flatnonzero(cold)
     df = pd.DataFrame({
         "item": item_labels[idx].astype(str),
