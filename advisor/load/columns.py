@@ -21,34 +21,36 @@ __all__ = [
     "fold_name",
 ]
 
-#: Common source names per canonical log field, most specific first. The first match wins.
+#: Common source names per canonical log field, in priority order (the first match wins).
+#: Names are compared folded (see :func:`fold_name`), so ``userid`` and ``UserId`` match
+#: ``user_id``.
 LOG_CANDIDATES: dict[str, tuple[str, ...]] = {
     "user": (
-        "user", "user_id", "userid", "uid", "customer", "customer_id", "member", "member_id",
+        "user", "user_id", "uid", "customer", "customer_id", "member", "member_id",
         "account", "account_id", "visitor", "visitor_id", "subscriber_id", "profile_id",
         "client_id", "person_id", "reader_id", "listener_id", "viewer_id", "student_id",
     ),
     "item": (
-        "item", "item_id", "itemid", "product", "product_id", "sku", "content", "content_id",
+        "item", "item_id", "product", "product_id", "sku", "content", "content_id",
         "movie_id", "track_id", "song_id", "title_id", "asset_id", "video_id", "book_id",
         "isbn", "article_id", "course_id", "class_id", "episode_id", "show_id", "program_id",
         "programme_id", "offer_id", "listing_id", "post_id", "game_id", "app_id", "media_id",
         "iid",
     ),
     "ts": (
-        "timestamp", "ts", "time", "event_time", "event_timestamp", "datetime", "date_time",
-        "date", "created_at", "occurred_at", "event_date", "logged_at", "time_stamp",
+        "timestamp", "ts", "time", "event_time", "event_timestamp", "datetime",
+        "date", "created_at", "occurred_at", "event_date", "logged_at",
         "unix_time", "epoch",
     ),
     "event": (
-        "event", "event_type", "eventtype", "event_name", "action", "action_type",
+        "event", "event_type", "event_name", "action", "action_type",
         "interaction", "interaction_type", "activity", "type", "behavior", "behaviour",
     ),
     "value": (
         "value", "rating", "score", "stars", "progress", "watch_fraction", "completion",
         "percent_watched", "amount", "price", "revenue",
     ),
-    "session": ("session", "session_id", "sessionid", "visit_id"),
+    "session": ("session", "session_id", "visit_id"),
 }
 
 #: Common source names per canonical catalogue field, most specific first.
