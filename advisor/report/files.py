@@ -112,7 +112,7 @@ def cold_users_csv(result: AuditResult) -> str:
 
 def quarantine_csv(result: AuditResult) -> str:
     """Rows set aside, each with its reason, file and line."""
-    return _csv(result.quarantine)
+    return _csv(result.quarantine.rename(columns={"_source": "file", "_line": "line"}))
 
 
 def write_reports(result: AuditResult, out_dir: str | Path, *, text: str | None = None) -> list[str]:
