@@ -162,8 +162,13 @@ def sample(out, seed):
     from advisor.scenario import generate_scenario
 
     kw = {} if seed is None else {"seed": seed}
-    summary = generate_scenario(out, **kw)
-    click.echo(f"wrote the sample scenario to {out}: {summary}")
+    try:
+        s = generate_scenario(out, **kw)
+    except AdvisorError as exc:
+        _fail(exc)
+        return
+    click.echo(f"wrote the sample scenario to {out}: {s.items} classes, {s.users} users, "
+               f"{s.events} events over {len(s.event_paths)} weekly files (seed {s.seed})")
 
 
 if __name__ == "__main__":  # pragma: no cover
