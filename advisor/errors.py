@@ -10,6 +10,7 @@ from __future__ import annotations
 __all__ = [
     "AdvisorError",
     "ConfigError",
+    "HistoryError",
     "InsufficientDataError",
     "LogFormatError",
     "OutputError",
@@ -49,3 +50,10 @@ class OutputError(AdvisorError, OSError):
     """A report could not be written (read-only folder, full disk, path outside the output)."""
 
     exit_code = 5
+
+
+class HistoryError(AdvisorError):
+    """The audit history database cannot be opened, read or written (corrupt, foreign,
+    newer schema, locked too long); the file is left as it was."""
+
+    exit_code = 6
