@@ -1,7 +1,8 @@
 """Command line: a thin layer over :func:`advisor.audit` and friends.
 
 Exit codes: 0 success; 2 bad option, config or rules file; 3 unreadable or malformed input;
-4 nothing left to audit; 5 reports could not be written; 1 any other tool error.
+4 nothing left to audit; 5 reports could not be written; 6 history database unusable;
+10, 11, 12 a ``--fail-on`` gate tripped; 1 any other tool error.
 """
 
 from __future__ import annotations
@@ -14,23 +15,38 @@ from pathlib import Path
 
 import click
 from rich.console import Console
+from rich.text import Text
 
 from advisor.config import AuditConfig, load_config, validate_config
 from advisor.errors import AdvisorError, ConfigError
 
 EPILOG = """\b
 Exit codes: 0 done; 2 bad option, config or rules file; 3 unreadable or malformed input;
-4 nothing left to audit; 5 reports could not be written; 1 other tool errors.
+4 nothing left to audit; 5 reports could not be written; 6 history database unusable;
+10/11/12 a --fail-on gate tripped (no-go / go lost / tier dropped); 1 other tool errors.
 """
 
 
+def _console(*, stderr: bool = False) -> Console:
+    """A console that honours NO_COLOR with plain text (no colour, bold or other escapes);
+    100 columns when not a terminal (unless COLUMNS says otherwise), like audit.txt, so
+    piped reports are not cut at rich's default of 80."""
+    plain = bool(os.environ.get("NO_COLOR"))
+    console = Console(stderr=stderr, no_color=plain, color_system=None if plain else "auto")
+    if not console.is_terminal and not os.environ.get("COLUMNS"):
+        console.width = 100
+    return console
+
+
 def _stderr_console() -> Console:
-    return Console(stderr=True, no_color=bool(os.environ.get("NO_COLOR")))
+    return _console(stderr=True)
 
 
 def _fail(exc: AdvisorError) -> None:
-    _stderr_console().print(f"[bold red]error:[/] {exc}", highlight=False, markup=True,
-                            soft_wrap=True)
+    # The message is Text, not markup: it quotes config sections ("[columns]") and data.
+    msg = Text("error: ", style="bold red")
+    msg.append(str(exc))
+    _stderr_console().print(msg, highlight=False, soft_wrap=True)
     sys.exit(exc.exit_code)
 
 
@@ -44,34 +60,134 @@ def main() -> None:
     """
 
 
+def _audit_options(f):
+    """Options shared by ``audit`` and ``backfill``."""
+    opts = [
+        click.argument("logs", type=click.Path(exists=True, path_type=Path)),
+        click.option("--catalog", type=click.Path(exists=True, dir_okay=False, path_type=Path),
+                     help="Catalogue file: item id, title, categories, date added, ratings."),
+        click.option("--config", "config_file",
+                     type=click.Path(dir_okay=False, path_type=Path),
+                     help="TOML config: [columns], [catalog], [events], [audit]."),
+        click.option("--rules", "rules_file", type=click.Path(dir_okay=False, path_type=Path),
+                     help="TOML rules file that overrides or adds to the shipped rules."),
+        click.option("--user-col", help="Log column holding the user id."),
+        click.option("--item-col", help="Log column holding the item id."),
+        click.option("--time-col", "--ts-col", "time_col",
+                     help="Log column holding the timestamp."),
+        click.option("--event-col", help="Log column holding the event type."),
+        click.option("--value-col", help="Log column holding the value (rating, progress, "
+                                         "price)."),
+        click.option("--seed", type=int, help="Seed of every random step (default 20261201)."),
+        click.option("--backtest/--no-backtest", default=None,
+                     help="Run the offline backtest and learning curve (default: on)."),
+        click.option("--history", "history_path", type=click.Path(dir_okay=False, path_type=Path),
+                     help="History database (default: history.sqlite in --out)."),
+        click.option("--no-history", is_flag=True, help="Do not record the audit in the history."),
+        click.option("--quiet", is_flag=True,
+                     help="Print nothing but errors (files are still written)."),
+    ]
+    for opt in reversed(opts):
+        f = opt(f)
+    return f
+
+
+def _make_config(config_file, rules_file, user_col, item_col, time_col, event_col, value_col,
+                 seed, backtest, as_of=None) -> AuditConfig:
+    cfg = load_config(config_file)
+    cols = {k: v for k, v in dict(user=user_col, item=item_col, ts=time_col,
+                                  event=event_col, value=value_col).items() if v}
+    if cols:
+        cfg = replace(cfg, columns=replace(cfg.columns, **cols))
+    kw = {}
+    if as_of:
+        kw["as_of"] = as_of
+    if rules_file:
+        kw["rules_file"] = str(rules_file)
+    if seed is not None:
+        kw["seed"] = seed
+    if backtest is not None:
+        kw["backtest"] = backtest
+    cfg = replace(cfg, **kw)
+    validate_config(cfg)
+    return cfg
+
+
+def _run_and_write(logs, catalog, cfg, out, *, history_path, no_history, quiet, editorial_rows):
+    """One audit: run, write every report, record it; returns (result, written, previous)."""
+    from advisor.history import default_history_path, load_history, record_audit
+    from advisor.pipeline import audit as run_audit
+    from advisor.report.files import write_reports
+    from advisor.report.terminal import render
+
+    progress = None
+    status = None
+    err = _stderr_console()
+    if not quiet and err.is_terminal:
+        status = err.status("auditing")
+        status.start()
+        progress = lambda step: status.update(f"auditing: {step}")  # noqa: E731
+    try:
+        result = run_audit(logs, catalog=catalog, config=cfg, progress=progress)
+    finally:
+        if status is not None:
+            status.stop()
+    buf = io.StringIO()
+    render(result, Console(file=buf, width=100, color_system=None),
+           editorial_rows=editorial_rows)
+    written = write_reports(result, out, text=buf.getvalue())
+    previous = None
+    if not no_history:
+        path = history_path or default_history_path(out)
+        if Path(path).exists():
+            earlier = [e for e in load_history(path) if e.as_of < result.run.as_of]
+            previous = earlier[-1] if earlier else None
+        record_audit(result, path)
+    return result, written, previous
+
+
+#: Exit codes of the --fail-on gates (documented in the README).
+GATE_CODES = {"no-go": 10, "go-lost": 11, "tier-drop": 12}
+
+
+def _gate(result, previous, fail_on) -> int:
+    """The exit code a pipeline gates on: the first gate in --fail-on that trips, else 0."""
+    d = result.decision
+    order = [t.id for t in result.rules.tiers]
+
+    def rank(tier):
+        return -1 if tier is None else order.index(tier)
+
+    for gate in fail_on:
+        if gate == "no-go" and not d.personalised_go:
+            return GATE_CODES[gate]
+        if (gate == "go-lost" and previous is not None and previous.personalised_go
+                and not d.personalised_go):
+            return GATE_CODES[gate]
+        if (gate == "tier-drop" and previous is not None
+                and rank(d.headline_tier) < rank(previous.headline_tier)):
+            return GATE_CODES[gate]
+    return 0
+
+
 @main.command(epilog=EPILOG)
-@click.argument("logs", type=click.Path(exists=True, path_type=Path))
-@click.option("--catalog", type=click.Path(exists=True, dir_okay=False, path_type=Path),
-              help="Catalogue file: item id, title, categories, date added, ratings.")
+@_audit_options
 @click.option("--out", type=click.Path(file_okay=False, path_type=Path),
               default=Path("advisor-report"), show_default=True,
               help="Folder that receives every report file.")
 @click.option("--as-of", "as_of", metavar="DATE",
               help="Audit the data as it stood at this date (YYYY-MM-DD or ISO datetime, UTC); "
                    "later events are set aside.")
-@click.option("--config", "config_file", type=click.Path(dir_okay=False, path_type=Path),
-              help="TOML config: [columns], [catalog], [events], [audit].")
-@click.option("--rules", "rules_file", type=click.Path(dir_okay=False, path_type=Path),
-              help="TOML rules file that overrides or adds to the shipped rules.")
-@click.option("--user-col", help="Log column holding the user id.")
-@click.option("--item-col", help="Log column holding the item id.")
-@click.option("--time-col", help="Log column holding the timestamp.")
-@click.option("--event-col", help="Log column holding the event type.")
-@click.option("--value-col", help="Log column holding the value (rating, progress, price).")
-@click.option("--seed", type=int, help="Seed of every random step (default 20261201).")
-@click.option("--backtest/--no-backtest", default=None,
-              help="Run the offline backtest and learning curve (default: on).")
 @click.option("--editorial-rows", type=click.IntRange(0, 1000), default=10, show_default=True,
               help="Rows of the editorial list to print (the CSV has all).")
 @click.option("--json", "as_json", is_flag=True, help="Print the JSON report instead of text.")
-@click.option("--quiet", is_flag=True, help="Print nothing but errors (files are still written).")
-def audit(logs, catalog, out, as_of, config_file, rules_file, user_col, item_col, time_col,
-          event_col, value_col, seed, backtest, editorial_rows, as_json, quiet):
+@click.option("--fail-on", "fail_on", multiple=True,
+              type=click.Choice(sorted(GATE_CODES)),
+              help="Exit non-zero for a pipeline to gate on: no-go (10), go-lost: go last "
+                   "audit, no-go now (11), tier-drop: headline tier fell (12). Repeatable.")
+def audit(logs, catalog, config_file, rules_file, user_col, item_col, time_col, event_col,
+          value_col, seed, backtest, history_path, no_history, quiet, out, as_of,
+          editorial_rows, as_json, fail_on):
     """Audit LOGS (a file or a folder of weekly drops) and write reports to --out.
 
     \b
@@ -79,55 +195,106 @@ def audit(logs, catalog, out, as_of, config_file, rules_file, user_col, item_col
       advisor audit sample_logs/events --catalog sample_logs/catalog.csv
       advisor audit plays.parquet --user-col customer --item-col sku --time-col when
       advisor audit logs/ --as-of 2026-10-31 --out reports/2026-10-31
+      advisor audit logs/ --fail-on go-lost      # in a weekly job
     """
-    from advisor.pipeline import audit as run_audit
-    from advisor.report.files import to_json, write_reports
+    from advisor.report.files import to_json
     from advisor.report.terminal import render
 
     try:
-        cfg = load_config(config_file)
-        cols = {k: v for k, v in dict(user=user_col, item=item_col, ts=time_col,
-                                      event=event_col, value=value_col).items() if v}
-        if cols:
-            cfg = replace(cfg, columns=replace(cfg.columns, **cols))
-        kw = {}
-        if as_of:
-            kw["as_of"] = as_of
-        if rules_file:
-            kw["rules_file"] = str(rules_file)
-        if seed is not None:
-            kw["seed"] = seed
-        if backtest is not None:
-            kw["backtest"] = backtest
-        cfg = replace(cfg, **kw)
-        validate_config(cfg)
-        progress = None
-        status = None
-        err = _stderr_console()
-        if not quiet and err.is_terminal:
-            status = err.status("auditing")
-            status.start()
-            progress = lambda step: status.update(f"auditing: {step}")  # noqa: E731
-        try:
-            result = run_audit(logs, catalog=catalog, config=cfg, progress=progress)
-        finally:
-            if status is not None:
-                status.stop()
-        buf = io.StringIO()
-        render(result, Console(file=buf, width=100, color_system=None),
-               editorial_rows=editorial_rows)
-        written = write_reports(result, out, text=buf.getvalue())
+        cfg = _make_config(config_file, rules_file, user_col, item_col, time_col, event_col,
+                           value_col, seed, backtest, as_of)
+        result, written, previous = _run_and_write(
+            logs, catalog, cfg, out, history_path=history_path, no_history=no_history,
+            quiet=quiet, editorial_rows=editorial_rows)
     except AdvisorError as exc:
         _fail(exc)
         return
-    if quiet:
+    if not quiet:
+        if as_json:
+            click.echo(to_json(result))
+        else:
+            render(result, _console(), written=[str(out / w) for w in written],
+                   editorial_rows=editorial_rows)
+    code = _gate(result, previous, fail_on)
+    if code:
+        _stderr_console().print(Text(f"gate tripped: exit {code} (see --fail-on)"))
+        sys.exit(code)
+
+
+def _week_ends(start: str, end: str) -> list[str]:
+    """Sundays (ISO week ends) from ``start`` to ``end`` inclusive, as YYYY-MM-DD."""
+    import pandas as pd
+
+    try:
+        days = pd.date_range(pd.Timestamp(start), pd.Timestamp(end), freq="W-SUN")
+    except (ValueError, TypeError) as exc:
+        raise ConfigError(f"--from/--to must be dates such as 2026-10-04 ({exc})") from None
+    return [d.strftime("%Y-%m-%d") for d in days]
+
+
+@main.command(epilog=EPILOG)
+@_audit_options
+@click.option("--from", "start", required=True, metavar="DATE",
+              help="First week to audit (its Sunday is the first as-of date).")
+@click.option("--to", "end", required=True, metavar="DATE", help="Last week to audit.")
+@click.option("--out", type=click.Path(file_okay=False, path_type=Path),
+              default=Path("advisor-report"), show_default=True,
+              help="Folder for the history; each week's reports go to OUT/weeks/DATE.")
+def backfill(logs, catalog, config_file, rules_file, user_col, item_col, time_col, event_col,
+             value_col, seed, backtest, history_path, no_history, quiet, start, end, out):
+    """Audit every past week from --from to --to (as of each Sunday) and fill the history.
+
+    \b
+    Example:
+      advisor backfill sample_logs/events --catalog sample_logs/catalog.csv \\
+          --from 2026-09-14 --to 2026-11-29
+    """
+    from advisor.history import default_history_path
+
+    try:
+        weeks = _week_ends(start, end)
+        if not weeks:
+            raise ConfigError(f"no Sunday between --from {start} and --to {end}; widen the range")
+        path = history_path or default_history_path(out)
+        for day in weeks:
+            cfg = _make_config(config_file, rules_file, user_col, item_col, time_col,
+                               event_col, value_col, seed, backtest, day)
+            result, _, _ = _run_and_write(logs, catalog, cfg, out / "weeks" / day,
+                                          history_path=path, no_history=no_history,
+                                          quiet=quiet, editorial_rows=10)
+            if not quiet:
+                d = result.decision
+                click.echo(f"{day}: {d.headline_tier or 'no tier'}; personalised rows "
+                           f"{'GO' if d.personalised_go else 'NO-GO'}")
+    except AdvisorError as exc:
+        _fail(exc)
+        return
+    if not quiet and not no_history:
+        click.echo(f"history: {path} (see `advisor history --history {path}`)")
+
+
+@main.command(epilog=EPILOG)
+@click.option("--history", "history_path", type=click.Path(dir_okay=False, path_type=Path),
+              help="History database (default: advisor-report/history.sqlite).")
+@click.option("--json", "as_json", is_flag=True, help="Print JSON instead of text.")
+@click.option("--confidence", type=click.FloatRange(0.5, 0.999), default=0.95, show_default=True,
+              help="Confidence of the forecast intervals.")
+def history(history_path, as_json, confidence):
+    """Show the audit history: trend per audit and a readiness forecast with intervals."""
+    import json
+
+    from advisor.history import default_history_path, load_history
+    from advisor.report.history_view import history_to_dict, render_history
+
+    try:
+        entries = load_history(history_path or default_history_path(Path("advisor-report")))
+    except AdvisorError as exc:
+        _fail(exc)
         return
     if as_json:
-        click.echo(to_json(result))
-        return
-    console = Console(no_color=bool(os.environ.get("NO_COLOR")))
-    render(result, console, written=[str(out / w) for w in written],
-           editorial_rows=editorial_rows)
+        click.echo(json.dumps(history_to_dict(entries, confidence=confidence), indent=2))
+    else:
+        render_history(entries, _console(), confidence=confidence)
 
 
 @main.command()
@@ -140,7 +307,7 @@ def rules(rules_file, show_metrics):
     from advisor.report.rules_view import render_metrics, render_rules
     from advisor.rules.loader import load_rules
 
-    console = Console(no_color=bool(os.environ.get("NO_COLOR")))
+    console = _console()
     try:
         rs = load_rules(rules_file)
     except AdvisorError as exc:
