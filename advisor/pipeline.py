@@ -7,7 +7,7 @@ This is the library entry point behind ``advisor audit``; a notebook user calls
 from __future__ import annotations
 
 import time
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, replace
 from datetime import datetime, timezone
 from pathlib import Path
 from typing import Callable
@@ -27,7 +27,7 @@ from advisor.rules.loader import load_rules
 from advisor.rules.metrics import profile_metrics
 from advisor.rules.model import RuleSet
 from advisor.validate import validate
-from advisor.validate.model import QualityReport
+from advisor.validate.model import Catalog, QualityReport, ValidatedLog
 
 #: Version of the JSON report layout; bump on any incompatible change.
 SCHEMA_VERSION = "1.0"
@@ -132,7 +132,7 @@ def audit(logs: str | Path, *, catalog: str | Path | None = None,
     raw = read_logs(logs, config.columns)
     raw_cat = read_catalog(catalog, config.catalog_columns) if catalog is not None else None
     say("validating")
-    log = validate(raw, raw_cat, config)
+    log = _catalog_as_of(validate(raw, raw_cat, config))
     say("aggregating")
     agg = aggregate(log)
     say("profiling")
@@ -171,6 +171,32 @@ def audit(logs: str | Path, *, catalog: str | Path | None = None,
     return AuditResult(run, inputs, raw.columns,
                        None if raw_cat is None else raw_cat.columns, log.quality,
                        log.quarantine, profile, evidence, metrics, rules, decision, users, items)
+
+
+def _catalog_as_of(log: ValidatedLog) -> ValidatedLog:
+    """The catalogue as it stood at the audit date.
+
+    Items added after ``log.as_of`` did not exist yet when a past week is replayed: kept, they
+    would count as never consumed, lower the coverage and head the editorial list. They are
+    left out (and the report says how many), unless the log already has events for them.
+    """
+    if log.catalog is None:
+        return log
+    items = log.catalog.items
+    later = np.array(items["added"] > log.as_of, dtype=bool)
+    if not later.any():
+        return log
+    # A set of the distinct ids: Series.isin on pyarrow strings is slow on long logs.
+    seen = set(log.events["item"].unique().tolist())
+    later &= ~np.array([i in seen for i in items["item"].tolist()], dtype=bool)
+    if not later.any():
+        return log
+    n = int(later.sum())
+    note = (f"{n:,} catalogue item{'s' if n != 1 else ''} added after the audit date "
+            f"{log.as_of.strftime('%Y-%m-%d %H:%M:%S')} UTC left out: they did not exist yet.")
+    quality = replace(log.quality, notes=log.quality.notes + (note,))
+    catalog = Catalog(items=items[~later].reset_index(drop=True))
+    return replace(log, catalog=catalog, quality=quality)
 
 
 def _user_threshold(metrics: dict) -> tuple[int, str]:

@@ -12,6 +12,7 @@ import io
 import json
 import math
 import os
+import shutil
 import tempfile
 from pathlib import Path
 
@@ -136,30 +137,88 @@ def write_reports(result: AuditResult, out_dir: str | Path, *, text: str | None 
     return list(files)
 
 
+def _file_mode() -> int:
+    """Mode of a newly created file under the current umask (``mkstemp`` would give 0600)."""
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return 0o666 & ~mask
+
+
 def write_atomically(out: Path, files: dict[str, str]) -> None:
-    """Write all ``files`` (name -> text) into ``out``; all land or none is replaced."""
+    """Write all ``files`` (name -> text) into ``out``; all land or none is replaced.
+
+    Notes
+    -----
+    Every file is written in full to a temporary name first, then moved over its final name
+    with :func:`os.replace`. Files already in ``out`` are kept as hard links (copies where
+    links are not supported) until every move has succeeded, so an error part-way through
+    puts the earlier report back. Only a hard kill between two moves can leave a mix of whole
+    old and whole new files; a half-written file is never left behind.
+    """
     try:
         out.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise OutputError(f"cannot create the output folder {out} ({exc.strerror}); "
                           "choose another folder with --out") from None
     temps: list[tuple[str, Path]] = []
+    backups: dict[str, Path] = {}
+    moved: list[str] = []
+    mode = _file_mode()
     try:
         for name, content in files.items():
             fd, tmp = tempfile.mkstemp(prefix=f".{name}.", suffix=".tmp", dir=out)
             temps.append((name, Path(tmp)))
             with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
+                if hasattr(os, "fchmod"):
+                    os.fchmod(fh.fileno(), mode)
                 fh.write(content)
                 fh.flush()
                 os.fsync(fh.fileno())
+        for name, _ in temps:
+            if (out / name).is_file():
+                backups[name] = _backup(out / name)
         for name, tmp in temps:
             os.replace(tmp, out / name)
-    except OSError as exc:
+            moved.append(name)
+    except BaseException as exc:
+        _roll_back(out, moved, backups)
         for _, tmp in temps:
             tmp.unlink(missing_ok=True)
-        raise OutputError(f"cannot write reports into {out} ({exc.strerror}); check that the "
-                          "folder is writable and the disk has space, or choose --out") from None
-    except BaseException:
-        for _, tmp in temps:
-            tmp.unlink(missing_ok=True)
+        if isinstance(exc, OSError):
+            raise OutputError(
+                f"cannot write reports into {out} ({exc.strerror or exc}); check that the "
+                "folder is writable and the disk has space, or choose --out") from None
         raise
+    for bak in backups.values():
+        bak.unlink(missing_ok=True)
+
+
+def _backup(path: Path) -> Path:
+    """A second name for ``path``'s current content, in the same folder."""
+    fd, bak = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".bak", dir=path.parent)
+    os.close(fd)
+    bak_path = Path(bak)
+    try:
+        bak_path.unlink()
+        os.link(path, bak_path)
+    except OSError:
+        try:
+            shutil.copy2(path, bak_path)
+        except BaseException:
+            bak_path.unlink(missing_ok=True)
+            raise
+    return bak_path
+
+
+def _roll_back(out: Path, moved: list[str], backups: dict[str, Path]) -> None:
+    """Put back the files that were there before; remove the ones that were not."""
+    for name in moved:
+        try:
+            if name in backups:
+                os.replace(backups.pop(name), out / name)
+            else:
+                (out / name).unlink(missing_ok=True)
+        except OSError:
+            pass  # best effort: the original error is the one to report
+    for bak in backups.values():
+        bak.unlink(missing_ok=True)

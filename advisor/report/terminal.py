@@ -178,7 +178,8 @@ def _quality(r: AuditResult) -> Group:
     for i in shown:
         line = Text("- ")
         line.append(f"{i.code}", style="bold")
-        line.append(f" ({fmt(i.count)} {i.unit}, {i.severity}): ")
+        unit = i.unit[:-1] if i.count == 1 and i.unit.endswith("s") else i.unit
+        line.append(f" ({fmt(i.count)} {unit}, {i.severity}): ")
         line.append(i.message)
         lines.append(line)
     if not q.issues:
@@ -232,5 +233,7 @@ def _assumptions(r: AuditResult) -> Panel:
                  "holds as data grows: a planning estimate, not a promise.")
     if r.evidence is None:
         notes.append("The backtest was switched off: rules that need it are borderline at best.")
-    return Panel("\n".join(f"- {n}" for n in notes), title="Assumptions", title_align="left",
-                 box=box.ROUNDED)
+    # Text, not a markup string: notes carry file names and config sections such as
+    # "[events.interaction]" that rich would otherwise take for style tags and drop.
+    return Panel(Text("\n".join(f"- {n}" for n in notes)), title="Assumptions",
+                 title_align="left", box=box.ROUNDED)

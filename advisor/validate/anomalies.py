@@ -282,9 +282,9 @@ def anomaly_issues(
             first_file=file, first_line=line,
             message=(f"{_count(len(bots.users), 'account')} beyond a person's activity, likely "
                      "automated or shared "
-                     f"({'; '.join(rules)}); busiest: {top!r} with "
+                     f"({'; '.join(rules)}); the busiest has "
                      f"{bots.counted_events[top]:,} counted events (first at {file} line "
-                     f"{line}). {what}, or raise max_events_per_hour or implausible_factor if "
+                     f"{line}; ids are not printed). {what}, or raise max_events_per_hour or implausible_factor if "
                      "they are real people.")))
     ts = events["ts"].reset_index(drop=True)  # labels = positions, for _row
     daily = daily_counts(ts)
