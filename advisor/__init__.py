@@ -5,26 +5,49 @@
 >>> result.decision.personalised_go  # doctest: +SKIP
 """
 
+from __future__ import annotations
+
+import importlib
+
 __version__ = "0.1.0"
 
 from advisor.config import AuditConfig, load_config
 from advisor.errors import (
     AdvisorError,
     ConfigError,
+    HistoryError,
     InsufficientDataError,
     LogFormatError,
     OutputError,
     RulesError,
 )
-from advisor.pipeline import SCHEMA_VERSION, AuditResult, audit
-from advisor.report.files import to_json, write_reports
-from advisor.rules.loader import load_rules
+
+# The audit pulls in pandas, scipy and statsmodels; load it on first use so that
+# `advisor --help` and `import advisor.errors` stay fast (PEP 562 module __getattr__).
+_LAZY = {
+    "SCHEMA_VERSION": "advisor.pipeline",
+    "AuditResult": "advisor.pipeline",
+    "audit": "advisor.pipeline",
+    "to_json": "advisor.report.files",
+    "write_reports": "advisor.report.files",
+    "load_rules": "advisor.rules.loader",
+}
+
+
+def __getattr__(name: str):
+    if name in _LAZY:
+        value = getattr(importlib.import_module(_LAZY[name]), name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'advisor' has no attribute {name!r}")
+
 
 __all__ = [
     "AdvisorError",
     "AuditConfig",
     "AuditResult",
     "ConfigError",
+    "HistoryError",
     "InsufficientDataError",
     "LogFormatError",
     "OutputError",

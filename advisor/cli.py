@@ -114,10 +114,16 @@ def _make_config(config_file, rules_file, user_col, item_col, time_col, event_co
 
 
 def _run_and_write(logs, catalog, cfg, out, *, history_path, no_history, quiet, editorial_rows):
-    """One audit: run, write every report, record it; returns (result, written, previous)."""
-    from advisor.history import default_history_path, load_history, record_audit
+    """One audit: run, write every report, record it; returns (result, written, previous).
+
+    The HTML report shows the trend including this audit, so the history is read first and
+    this audit's entry joins it in memory; the history is written last, after the reports.
+    """
+    from advisor.history import (default_history_path, entry_from_result, forecast_readiness,
+                                 load_history, record_audit)
     from advisor.pipeline import audit as run_audit
     from advisor.report.files import write_reports
+    from advisor.report.html import render_html
     from advisor.report.terminal import render
 
     progress = None
@@ -129,20 +135,26 @@ def _run_and_write(logs, catalog, cfg, out, *, history_path, no_history, quiet, 
         progress = lambda step: status.update(f"auditing: {step}")  # noqa: E731
     try:
         result = run_audit(logs, catalog=catalog, config=cfg, progress=progress)
+        if status is not None:
+            status.update("auditing: writing reports")
+        path = None if no_history else (history_path or default_history_path(out))
+        before = load_history(path) if path is not None and Path(path).exists() else ()
+        entry = entry_from_result(result)
+        entries = sorted([e for e in before if e.as_of != entry.as_of] + [entry],
+                         key=lambda e: e.as_of)
+        earlier = [e for e in entries if e.as_of < entry.as_of]
+        previous = earlier[-1] if earlier else None
+        buf = io.StringIO()
+        render(result, Console(file=buf, width=100, color_system=None),
+               editorial_rows=editorial_rows)
+        html = render_html(result, history=entries if len(entries) > 1 else None,
+                           forecast=forecast_readiness(entries) if len(entries) > 1 else None)
+        written = write_reports(result, out, text=buf.getvalue(), html=html)
+        if path is not None:
+            record_audit(result, path)
     finally:
         if status is not None:
             status.stop()
-    buf = io.StringIO()
-    render(result, Console(file=buf, width=100, color_system=None),
-           editorial_rows=editorial_rows)
-    written = write_reports(result, out, text=buf.getvalue())
-    previous = None
-    if not no_history:
-        path = history_path or default_history_path(out)
-        if Path(path).exists():
-            earlier = [e for e in load_history(path) if e.as_of < result.run.as_of]
-            previous = earlier[-1] if earlier else None
-        record_audit(result, path)
     return result, written, previous
 
 

@@ -24,8 +24,8 @@ from advisor.rules.loader import load_rules
 from advisor.rules.metrics import METRIC_DOCS
 from conftest import REPO, SAMPLE_CATALOG, SAMPLE_EVENTS
 
-REPORT_FILES = ("audit.json", "audit.txt", "editorial_placement.csv", "cold_users_by_band.csv",
-                "quarantine.csv")
+REPORT_FILES = ("audit.json", "audit.txt", "report.html", "editorial_placement.csv",
+                "cold_users_by_band.csv", "quarantine.csv")
 HISTORY = "history.sqlite"  # recorded in --out unless --no-history
 SAMPLE_ARGS = ["audit", str(SAMPLE_EVENTS), "--catalog", str(SAMPLE_CATALOG)]
 ANSI = re.compile(r"\x1b\[")

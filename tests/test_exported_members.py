@@ -17,6 +17,7 @@ DOCUMENTED = {
     "AuditConfig",
     "AuditResult",
     "ConfigError",
+    "HistoryError",
     "InsufficientDataError",
     "LogFormatError",
     "OutputError",

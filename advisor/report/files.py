@@ -27,6 +27,7 @@ EDITORIAL_NAME = "editorial_placement.csv"
 COLD_USERS_NAME = "cold_users_by_band.csv"
 QUARANTINE_NAME = "quarantine.csv"
 TEXT_NAME = "audit.txt"
+HTML_NAME = "report.html"
 
 #: Leading characters that make spreadsheets evaluate a cell (OWASP, "CSV Injection").
 _FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
@@ -116,8 +117,11 @@ def quarantine_csv(result: AuditResult) -> str:
     return _csv(result.quarantine.rename(columns={"_source": "file", "_line": "line"}))
 
 
-def write_reports(result: AuditResult, out_dir: str | Path, *, text: str | None = None) -> list[str]:
+def write_reports(result: AuditResult, out_dir: str | Path, *, text: str | None = None,
+                  html: str | None = None) -> list[str]:
     """Write every report file into ``out_dir`` atomically; return the names written.
+
+    ``text`` (the terminal report) and ``html`` (the HTML report) are written when given.
 
     Raises
     ------
@@ -133,6 +137,8 @@ def write_reports(result: AuditResult, out_dir: str | Path, *, text: str | None 
     }
     if text is not None:
         files[TEXT_NAME] = text
+    if html is not None:
+        files[HTML_NAME] = html
     write_atomically(out, files)
     return list(files)
 
