@@ -120,7 +120,10 @@ def fit_learning_curve(points: list[tuple[float, int, np.ndarray, np.ndarray]], 
                  still_climbing=None, projections=())
     sizes = sorted({p.train_users for p in curve_points})
     n_users = len(pts[0][2])
-    if full.lift >= target_abs and full.baseline_ndcg > 0:
+    # "Met" asks for the same evidence as the go: the point estimate at the target and an
+    # interval above zero; a point estimate alone does not show the target is reached.
+    shown = full.lift_low is not None and full.lift_low > 0
+    if full.lift >= target_abs and full.baseline_ndcg > 0 and shown:
         status, reason = "met", "the lift at today's size already meets the target"
     else:
         status, reason = "not_estimable", ""
