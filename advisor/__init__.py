@@ -1,7 +1,8 @@
 """Weekly readiness audit of a recommendation service's interaction logs.
 
 >>> import advisor
->>> result = advisor.audit("sample_logs/events", catalog="sample_logs/catalog.csv")  # doctest: +SKIP
+>>> result = advisor.audit("sample_logs/events",
+...                        catalog="sample_logs/catalog.csv")  # doctest: +SKIP
 >>> result.decision.personalised_go  # doctest: +SKIP
 """
 

@@ -8,7 +8,7 @@ messages can point at it.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import pandas as pd
 
@@ -92,7 +92,8 @@ class RawCatalog:
     """Every row read from the catalogue file, unparsed."""
 
     rows: pd.DataFrame
-    """Columns: the canonical ``CATALOG_FIELDS`` present (strings as read), ``_source``, ``_line``."""
+    """Columns: the canonical ``CATALOG_FIELDS`` present (strings as read), ``_source`` and
+    ``_line``."""
     file: InputFile
     """The catalogue file."""
     columns: ColumnDetection

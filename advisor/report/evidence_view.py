@@ -62,7 +62,8 @@ def evidence_tables(ev: Evidence) -> list:
     if lvi is not None:
         out.append(Text(f"Latent vs item neighbours: {lvi.lift:+.3f} "
                         f"{_ci(lvi.lift_low, lvi.lift_high)}, p {_p(lvi.p_value)}. "
-                        "(* best personalised candidate; Cover: share of the catalogue recommended; "
+                        "(* best personalised candidate; Cover: share of the catalogue "
+                        "recommended; "
                         "p: paired t-test "
                         "on per-user NDCG; d_z: mean difference / its standard deviation.)"))
 

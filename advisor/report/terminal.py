@@ -136,7 +136,8 @@ def _profile(r: AuditResult) -> Table:
     t.add_column("Value", overflow="fold")
     a = p.activity
     t.add_row("Users with >= 1/2/3/5/10/20 items",
-              " / ".join(f"{fmt(n)} ({pct(s)})" for n, s in zip(a.users_at_least, a.share_at_least)))
+              " / ".join(f"{fmt(n)} ({pct(s)})"
+                         for n, s in zip(a.users_at_least, a.share_at_least)))
     t.add_row("Returning week over week", pct(a.returning_share))
     s = p.support
     t.add_row("Items with >= " + "/".join(map(str, s.levels)) + " users",

@@ -232,7 +232,8 @@ def cold_items(item_labels: np.ndarray, item_users: np.ndarray, neighbours: np.n
         "estimate_basis": basis[idx].astype(str),
     })
     fts = np.asarray(item_first_ts)[idx]
-    df["first_seen"] = pd.to_datetime(np.where(fts >= 0, fts, 0), unit="s", utc=True).where(fts >= 0)
+    seen_at = pd.to_datetime(np.where(fts >= 0, fts, 0), unit="s", utc=True)
+    df["first_seen"] = seen_at.where(fts >= 0)
     df["title"] = None
     # A typed, tz-aware column even without a catalogue: a bare NaT column is naive, and the
     # recency sort below needs ``.dt`` on a tz-aware series.

@@ -25,12 +25,14 @@ METRIC_DOCS = {
     "activity.share_ge_M": "share of users with at least M distinct items",
     "activity.median_items": "median distinct items per user",
     "activity.returning_share": "share of a week's active users active again the next week",
-    "support.items_ge_M": "catalogue items with at least M distinct users (M = 1, 5, 10, 20, 50, 100)",
+    "support.items_ge_M": "catalogue items with at least M distinct users "
+                          "(M = 1, 5, 10, 20, 50, 100)",
     "support.share_ge_M": "share of the catalogue with at least M distinct users",
     "support.coverage": "share of the catalogue with any counted interaction",
     "longtail.top20_share": "share of interactions on the most popular 20% of items",
     "longtail.gini": "Gini coefficient of interactions per catalogue item",
-    "cooc.share_items_ge_K_neighbours": "share of seen items with at least K significant neighbours",
+    "cooc.share_items_ge_K_neighbours": "share of seen items with at least K significant "
+                                        "neighbours",
     "cooc.share_interactions_ge_K_neighbours": "share of interactions on such items",
     "cooc.pairs_significant": "item pairs whose co-consumption is above chance",
     "cooc.median_neighbours": "median significant neighbours per seen item",

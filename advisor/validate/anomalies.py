@@ -284,7 +284,8 @@ def anomaly_issues(
                      "automated or shared "
                      f"({'; '.join(rules)}); the busiest has "
                      f"{bots.counted_events[top]:,} counted events (first at {file} line "
-                     f"{line}; ids are not printed). {what}, or raise max_events_per_hour or implausible_factor if "
+                     f"{line}; ids are not printed). {what}, or raise max_events_per_hour or "
+                     "implausible_factor if "
                      "they are real people.")))
     ts = events["ts"].reset_index(drop=True)  # labels = positions, for _row
     daily = daily_counts(ts)

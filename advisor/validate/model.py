@@ -1,4 +1,5 @@
-"""What validation hands on: clean, typed events, a catalogue, and an account of every row set aside.
+"""What validation hands on: clean, typed events, a catalogue, and an account of every
+row set aside.
 
 Nothing after this stage sees a bad row. Every row read is either in ``events`` or in
 ``quarantine`` (with its reason); exact duplicates are counted and dropped, and the count is
