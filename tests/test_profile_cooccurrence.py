@@ -265,3 +265,39 @@ def test_misaligned_item_weights_are_refused():
         cooccurrence_profile(TINY, item_weights=[1, 2, 3])
     with pytest.raises(LogFormatError, match="item_weights"):
         cooccurrence_profile(TINY, item_weights=[1, -2, 3, 4])
+
+
+def _growing_independent_log(seed: int):
+    """Planted: users and items arrive over time; a user takes each item available while
+    they are active with the same probability, independent of any taste."""
+    rng = np.random.default_rng(seed)
+    n_users, n_items, p = 3000, 120, 0.08
+    joined = rng.uniform(0, 1, n_users)
+    left = joined + 0.25
+    added = rng.uniform(0, 1, n_items)
+    exposed = left[:, None] >= added[None, :]
+    taken = exposed & (rng.uniform(size=exposed.shape) < p)
+    matrix = sp.csr_matrix(taken.astype(np.float32))
+    return matrix, exposed.sum(axis=0)
+
+
+def test_exposure_adjusted_base_rates_keep_false_pairs_near_the_nominal_rate():
+    """In a growing catalogue with no taste at all, base rates over every user make pairs of
+    new items look significant; counting only users exposed to x brings the share of
+    significant pairs back to about the nominal one-sided rate (planted structure)."""
+    for seed in (1, 2):
+        matrix, exposed = _growing_independent_log(seed)
+        naive = cooccurrence_profile(matrix, confidence=0.95)
+        fair = cooccurrence_profile(matrix, confidence=0.95, exposed_users=exposed)
+        naive_rate = naive.pairs_significant / naive.pairs_scored
+        fair_rate = fair.pairs_significant / fair.pairs_scored
+        assert naive_rate > 0.08  # the confound: over 3x the nominal rate (0.13-0.16 here)
+        assert fair_rate < 0.05  # nominal one-sided rate 0.025, with slack for small n_y
+
+
+def test_exposed_users_smaller_than_support_is_rejected():
+    """An item cannot have more users than users exposed to it: a clear error, not a rate
+    above one."""
+    x = sp.csr_matrix([[1, 1], [1, 0], [0, 1]])
+    with pytest.raises(LogFormatError, match="exposed_users"):
+        cooccurrence_profile(x, exposed_users=np.array([1, 2]))

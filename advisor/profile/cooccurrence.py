@@ -184,6 +184,7 @@ def cooccurrence_profile(
     min_pair_users: int = 2,
     k_thresholds=(1, 3, 5, 10),
     item_weights=None,
+    exposed_users=None,
     top_n: int = 20,
 ) -> CooccurrenceProfile:
     """Count, per item, the neighbours whose co-consumption is above chance.
@@ -202,6 +203,11 @@ def cooccurrence_profile(
     item_weights : array_like, optional
         Non-negative weight per item (length ``n_items``), e.g. uncapped interaction
         counts, for ``interaction_share``. Default: the support ``n_y``.
+    exposed_users : array_like, optional
+        Per item x, the users who could have consumed it (e.g. users still active after x
+        first appeared), the denominator of x's base rate. Default: every user. In a
+        growing catalogue a new item's base rate over all users is understated, which would
+        make pairs of new items look significant; see Notes.
     top_n : int, optional
         Rows in ``top_pairs``. Default 20.
 
@@ -224,8 +230,9 @@ def cooccurrence_profile(
     With ``X`` the binary matrix, ``C = X^T X`` holds co-consumption counts and its
     diagonal the supports ``n_i``. For the ordered pair "x given y"::
 
-        P(x | y) = C[x, y] / n_y        base rate  b_x = n_x / n_users
+        P(x | y) = C[x, y] / n_y        base rate  b_x = n_x / e_x
 
+    where ``e_x`` is ``exposed_users[x]`` (all users when not given).
     ``P(x | y)`` is a binomial proportion over the ``n_y`` users who consumed y; its Wilson
     interval comes from statsmodels. The pair is a significant neighbour of y when
     ``C[x, y] >= min_pair_users`` and the Wilson lower bound exceeds ``b_x``, i.e. x is
@@ -316,7 +323,17 @@ def cooccurrence_profile(
     n_y = support[cols]
     ci = wilson_interval(both, n_y, confidence=confidence)
     low, high, p = np.asarray(ci.low), np.asarray(ci.high), np.asarray(ci.estimate)
-    base = support[rows] / float(n_users)
+    if exposed_users is None:
+        exposed = np.full(n_items, float(n_users))
+    else:
+        exposed = np.asarray(exposed_users, dtype=float)
+        if exposed.shape != (n_items,) or np.any(exposed < support):
+            raise LogFormatError(
+                f"cooccurrence_profile: exposed_users must hold {n_items} counts, each at "
+                "least the item's support (an item's users were all exposed to it); got "
+                f"shape {exposed.shape}"
+            )
+    base = support[rows] / np.maximum(exposed[rows], 1.0)
     sig = low > base
 
     neighbours = np.bincount(cols[sig], minlength=n_items).astype(np.int64)
