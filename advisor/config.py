@@ -141,6 +141,11 @@ class AuditConfig:
     """Test users sampled for the backtest (seeded)."""
     rules_file: str | None = None
     """A user's rules TOML that overrides or adds to the shipped rules."""
+    engine: str = "pandas"
+    """Engine of the read, validate and aggregate stages: ``pandas`` (in memory) or
+    ``duckdb`` (embedded, out of core; needs the ``duckdb`` package)."""
+    threads: int | None = None
+    """Threads the ``duckdb`` engine may use; ``None``: every core of the machine."""
 
     def event_rule(self, name: str) -> EventRule | None:
         key = name.strip().lower()
@@ -155,7 +160,10 @@ _AUDIT_KEYS = {
     "unmapped_events_count", "as_of", "history_cap", "confidence", "min_pair_users",
     "exclude_implausible", "implausible_quantile", "implausible_factor",
     "max_events_per_hour", "seed", "backtest", "backtest_users", "rules_file",
+    "engine", "threads",
 }
+#: Engines that can compute the aggregates.
+ENGINES = ("pandas", "duckdb")
 _EVENT_KEYS = {"counts", "weight", "value", "min", "max"}
 
 
@@ -269,7 +277,7 @@ def apply_config(data: dict, cfg: AuditConfig, where: str = "config") -> AuditCo
         defaults = AuditConfig()
         kw = {}
         for k, v in aud.items():
-            want = type(getattr(defaults, k))
+            want = int if k == "threads" else type(getattr(defaults, k))
             types = (int, float) if want is float else (str,) if want is type(None) else (want,)
             kw[k] = _expect(v, types, f"audit.{k}", where)
             if want is float:
@@ -301,3 +309,10 @@ def validate_config(cfg: AuditConfig) -> None:
             f"max_events_per_hour must be at least 1, got {cfg.max_events_per_hour}")
     if cfg.seed < 0:
         raise ConfigError(f"seed must be a non-negative integer, got {cfg.seed}")
+    if cfg.engine not in ENGINES:
+        raise ConfigError(
+            f"engine must be one of {', '.join(ENGINES)}, got {cfg.engine!r}; use --engine "
+            "pandas (in memory) or --engine duckdb (large logs)")
+    if cfg.threads is not None and (isinstance(cfg.threads, bool) or cfg.threads < 1):
+        raise ConfigError(f"threads must be at least 1, got {cfg.threads!r}; leave it unset "
+                          "to use every core")

@@ -128,15 +128,19 @@ def audit(logs: str | Path, *, catalog: str | Path | None = None,
     started = datetime.now(timezone.utc).isoformat(timespec="seconds")
     rules = load_rules(config.rules_file)
 
-    say("reading logs")
-    raw = read_logs(logs, config.columns)
-    raw_cat = read_catalog(catalog, config.catalog_columns) if catalog is not None else None
-    say("validating")
-    log = _catalog_as_of(validate(raw, raw_cat, config))
-    say("aggregating")
-    agg = aggregate(log)
+    if config.engine == "duckdb":
+        files, columns, raw_cat, log, agg, events = _duckdb_stages(logs, catalog, config, say)
+    else:
+        say("reading logs")
+        raw = read_logs(logs, config.columns)
+        raw_cat = read_catalog(catalog, config.catalog_columns) if catalog is not None else None
+        say("validating")
+        log = _catalog_as_of(validate(raw, raw_cat, config))
+        say("aggregating")
+        agg = aggregate(log)
+        files, columns, events = raw.files, raw.columns, None
     say("profiling")
-    profile = build_profile(log, agg, config)
+    profile = build_profile(log, agg, config, events=events)
     metrics = profile_metrics(profile)
     metrics["quality.quarantined_share"] = (
         log.quality.rows_quarantined / log.quality.rows_read if log.quality.rows_read else None)
@@ -167,18 +171,36 @@ def audit(logs: str | Path, *, catalog: str | Path | None = None,
         seed=config.seed,
         config=_config_dict(config),
     )
-    inputs = raw.files + ((raw_cat.file,) if raw_cat is not None else ())
-    return AuditResult(run, inputs, raw.columns,
+    inputs = files + ((raw_cat.file,) if raw_cat is not None else ())
+    return AuditResult(run, inputs, columns,
                        None if raw_cat is None else raw_cat.columns, log.quality,
                        log.quarantine, profile, evidence, metrics, rules, decision, users, items)
 
 
-def _catalog_as_of(log: ValidatedLog) -> ValidatedLog:
+def _duckdb_stages(logs, catalog, config: AuditConfig, say):
+    """Read, validate and aggregate with the embedded DuckDB engine (events stay in DuckDB)."""
+    from advisor.aggregate.duckdb_engine import DuckDBEngine
+
+    say("reading logs")
+    with DuckDBEngine.open(logs, config) as engine:
+        raw_cat = read_catalog(catalog, config.catalog_columns) if catalog is not None else None
+        say("validating")
+        log = engine.validate(raw_cat)
+        if log.catalog is not None:
+            log = _catalog_as_of(log, event_items=engine.event_items())
+        say("aggregating")
+        agg = engine.aggregate(log)
+        events = engine.summary()
+        return engine.files, engine.columns, raw_cat, log, agg, events
+
+
+def _catalog_as_of(log: ValidatedLog, *, event_items=None) -> ValidatedLog:
     """The catalogue as it stood at the audit date.
 
     Items added after ``log.as_of`` did not exist yet when a past week is replayed: kept, they
     would count as never consumed, lower the coverage and head the editorial list. They are
     left out (and the report says how many), unless the log already has events for them.
+    ``event_items`` lists the items with events when ``log.events`` is not held (DuckDB).
     """
     if log.catalog is None:
         return log
@@ -187,7 +209,7 @@ def _catalog_as_of(log: ValidatedLog) -> ValidatedLog:
     if not later.any():
         return log
     # A set of the distinct ids: Series.isin on pyarrow strings is slow on long logs.
-    seen = set(log.events["item"].unique().tolist())
+    seen = set((log.events["item"].unique() if event_items is None else event_items).tolist())
     later &= ~np.array([i in seen for i in items["item"].tolist()], dtype=bool)
     if not later.any():
         return log

@@ -5,17 +5,21 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-import pandas as pd
 
 from advisor.aggregate.model import Aggregates
-from advisor.aggregate.pandas_engine import epoch_seconds
+from advisor.aggregate.summary import EventSummary, summarize_events
 from advisor.config import AuditConfig
 from advisor.profile.activity import ActivityProfile, activity_profile
 from advisor.profile.categories import CategoryProfile, category_profile
 from advisor.profile.cooccurrence import CooccurrenceProfile, cooccurrence_profile
 from advisor.profile.ratings import RatingProfile, rating_profile
 from advisor.profile.signals import Signals, signals
-from advisor.profile.support import LongTailProfile, SupportProfile, long_tail_profile, support_profile
+from advisor.profile.support import (
+    LongTailProfile,
+    SupportProfile,
+    long_tail_profile,
+    support_profile,
+)
 from advisor.profile.volume import VolumeProfile, volume_profile
 from advisor.validate.model import ValidatedLog
 
@@ -60,17 +64,21 @@ def item_categories(agg: Aggregates, log: ValidatedLog) -> list[tuple[str, ...]]
 
 
 def build_profile(log: ValidatedLog, agg: Aggregates, config: AuditConfig,
-                  matrix=None) -> Profile:
+                  matrix=None, *, events: EventSummary | None = None) -> Profile:
     """Run every profiler.
 
-    ``matrix`` is the capped user x item matrix (computed here when not given).
+    ``matrix`` is the capped user x item matrix (computed here when not given). ``events`` is
+    the engine's :class:`EventSummary`; when ``None`` it is computed from ``log.events``
+    (the in-memory engine).
     """
+    if events is None:
+        events = summarize_events(log.events, agg)
     if matrix is None:
         matrix = agg.matrix(cap=config.history_cap, exclude_implausible=config.exclude_implausible)
     cooc = cooccurrence_profile(matrix, confidence=config.confidence,
                                 min_pair_users=config.min_pair_users,
                                 item_weights=agg.item_events.astype(float))
-    ratings = _ratings(log, agg, config)
+    ratings = _ratings(events, config)
     cats = None
     if log.catalog is not None and log.catalog.has_categories:
         cats = category_profile(agg.pairs, item_categories(agg, log), agg.item_users)
@@ -82,21 +90,17 @@ def build_profile(log: ValidatedLog, agg: Aggregates, config: AuditConfig,
         cooccurrence=cooc,
         ratings=ratings,
         categories=cats,
-        signals=signals(log),
+        signals=signals(log, events),
         history_cap=config.history_cap,
         users_excluded=int(agg.implausible.sum()) if config.exclude_implausible else 0,
     )
 
 
-def _ratings(log: ValidatedLog, agg: Aggregates, config: AuditConfig) -> RatingProfile | None:
-    ev = log.events
-    r = ev[(ev["value_kind"] == "rating") & ev["value"].notna()]
-    if r.empty:
+def _ratings(events: EventSummary, config: AuditConfig) -> RatingProfile | None:
+    r = events.ratings
+    if r is None:
         return None
-    u = pd.Index(agg.user_labels).get_indexer(r["user"].to_numpy(dtype=object))
-    i = pd.Index(agg.item_labels).get_indexer(r["item"].to_numpy(dtype=object))
-    ok = (u >= 0) & (i >= 0)
-    r = r[ok]
-    return rating_profile(i[ok].astype(np.int64), u[ok].astype(np.int64),
-                          epoch_seconds(r["ts"]).to_numpy(dtype=np.int64),
+    return rating_profile(r["item_idx"].to_numpy(dtype=np.int64),
+                          r["user_idx"].to_numpy(dtype=np.int64),
+                          r["ts"].to_numpy(dtype=np.int64),
                           r["value"].to_numpy(dtype=float), confidence=config.confidence)

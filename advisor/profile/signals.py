@@ -6,6 +6,7 @@ from dataclasses import dataclass
 
 import pandas as pd
 
+from advisor.aggregate.summary import EventSummary, summarize_events
 from advisor.validate.model import ValidatedLog
 
 DAY_NS = 86400 * 10**9
@@ -42,11 +43,14 @@ class Signals:
         return {k: getattr(self, k) for k in self.__slots__}
 
 
-def signals(log: ValidatedLog) -> Signals:
-    """Which signals are present, from the validated log."""
-    ev = log.events
-    kinds = ev["value_kind"].to_numpy()
-    has_value = ev["value"].notna().to_numpy()
+def signals(log: ValidatedLog, events: EventSummary | None = None) -> Signals:
+    """Which signals are present, from the validated log.
+
+    ``events`` is the engine's summary of the events; when ``None`` it is taken from
+    ``log.events`` (the in-memory engine).
+    """
+    if events is None:
+        events = summarize_events(log.events)
     cat = log.catalog
     added = cat is not None and cat.has_added_dates
     recent = None
@@ -55,15 +59,16 @@ def signals(log: ValidatedLog) -> Signals:
         a = cat.items["added"]
         recent = int(((a > lo) & (a <= log.as_of)).sum())
     return Signals(
-        progress_events=int(((kinds == "progress") & has_value).sum()),
-        rating_events=int(((kinds == "rating") & has_value).sum()),
-        price_events=int(((kinds == "price") & has_value).sum()),
-        sessions=bool("session" in ev and ev["session"].notna().any()),
+        progress_events=int(events.progress_events),
+        rating_events=int(events.rating_events),
+        price_events=int(events.price_events),
+        sessions=bool(events.sessions),
         catalogue=cat is not None,
         added_dates=bool(added),
         categories=bool(cat is not None and cat.has_categories),
         titles=bool(cat is not None and cat.items["title"].notna().any()),
         catalogue_ratings=bool(cat is not None and cat.items["rating"].notna().any()),
         items_added_28d=recent,
-        event_types={str(k): int(v) for k, v in ev["event"].value_counts().items()},
+        event_types=dict(events.event_types),
     )
+
