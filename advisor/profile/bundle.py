@@ -63,6 +63,27 @@ def item_categories(agg: Aggregates, log: ValidatedLog) -> list[tuple[str, ...]]
     return [tuple(lookup.get(str(i), ())) for i in agg.item_labels]
 
 
+def exposed_users(agg: Aggregates, exclude_implausible: bool = True) -> np.ndarray:
+    """Per item, the users who could have consumed it: those whose latest interaction is at
+    or after the item's first one (every user for an item never seen).
+
+    Notes
+    -----
+    In a growing service, users who left before an item appeared could not take it; counting
+    them in its base rate understates the rate and makes pairs of new items look
+    co-consumed above chance. Users whose last interaction precedes the item's first are
+    left out; users still active after it are assumed exposed (assumption stated in the
+    report: without impression data, exposure is inferred from activity).
+    """
+    last = agg.user_last_ts
+    if exclude_implausible and agg.implausible.any():
+        last = last[~agg.implausible]
+    last = np.sort(last)
+    first = agg.item_first_ts
+    exposed = last.size - np.searchsorted(last, first, side="left")
+    return np.where(first >= 0, exposed, last.size).astype(np.int64)
+
+
 def build_profile(log: ValidatedLog, agg: Aggregates, config: AuditConfig,
                   matrix=None, *, events: EventSummary | None = None) -> Profile:
     """Run every profiler.
@@ -77,7 +98,8 @@ def build_profile(log: ValidatedLog, agg: Aggregates, config: AuditConfig,
         matrix = agg.matrix(cap=config.history_cap, exclude_implausible=config.exclude_implausible)
     cooc = cooccurrence_profile(matrix, confidence=config.confidence,
                                 min_pair_users=config.min_pair_users,
-                                item_weights=agg.item_events.astype(float))
+                                item_weights=agg.item_events.astype(float),
+                                exposed_users=exposed_users(agg, config.exclude_implausible))
     ratings = _ratings(events, config)
     cats = None
     if log.catalog is not None and log.catalog.has_categories:
