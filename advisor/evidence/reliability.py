@@ -30,6 +30,10 @@ _MEASURE = ("per-item Pearson correlation between the two halves' similarity row
             "all other items, averaged through Fisher's z")
 
 
+#: Items compared at most (seeded sample beyond it); bounds cost on large catalogues.
+MAX_ITEMS_COMPARED = 2000
+
+
 def spearman_brown(rho: float, factor: float) -> float:
     """Reliability at ``factor`` times the data, from reliability ``rho`` at the current size.
 
@@ -103,7 +107,8 @@ def _row_jaccard(sa: np.ndarray, sb: np.ndarray, k: int) -> np.ndarray:
 def neighbour_reliability(train: sp.csr_matrix, *, rng: np.random.Generator,
                           neighbours: int = NEIGHBOURS, alpha: float = ALPHA,
                           target: float = 0.8,
-                          min_support: int = MIN_HALF_SUPPORT) -> NeighbourReliability:
+                          min_support: int = MIN_HALF_SUPPORT,
+                          max_items: int = MAX_ITEMS_COMPARED) -> NeighbourReliability:
     """Split-half agreement of item neighbour lists and the data a target reliability needs.
 
     Parameters
@@ -120,6 +125,8 @@ def neighbour_reliability(train: sp.csr_matrix, *, rng: np.random.Generator,
         Target reliability.
     min_support : int, optional
         Users an item needs in each half to be compared.
+    max_items : int, optional
+        At most this many eligible items (a seeded sample) are compared.
 
     Returns
     -------
@@ -139,7 +146,8 @@ def neighbour_reliability(train: sp.csr_matrix, *, rng: np.random.Generator,
     reliability is the Spearman-Brown projection at k = 2; the users needed for ``target``
     invert the same formula (extra users beyond today's). Rare items excluded by
     ``min_support`` are usually the least reliable, so the figure describes items with some
-    data. The mean Jaccard overlap of the halves' top-k lists is reported beside it as a
+    data. On large catalogues a seeded sample of ``max_items`` eligible items is compared.
+    The mean Jaccard overlap of the halves' top-k lists is reported beside it as a
     plain description (no projection). Popularity of the neighbours is part of every row,
     so a log without taste structure can still give stable (popularity-shaped) rows.
 
@@ -154,14 +162,17 @@ def neighbour_reliability(train: sp.csr_matrix, *, rng: np.random.Generator,
     fa = np.asarray(xa.sum(axis=0)).ravel()
     fb = np.asarray(xb.sum(axis=0)).ravel()
     eligible = (fa >= min_support) & (fb >= min_support)
+    items = np.flatnonzero(eligible)
+    if items.size > max_items:
+        # Each compared item costs a dense row over the catalogue in both halves; a seeded
+        # sample of items bounds that on large catalogues (the mean over items is estimated).
+        items = np.sort(rng.choice(items, size=max_items, replace=False))
     corr, overlap = [], []
-    if eligible.sum() >= 1 and half >= min_support:
-        for (start, sa), (_, sb) in zip(similarity_blocks(xa, alpha=alpha),
-                                        similarity_blocks(xb, alpha=alpha)):
-            rows = eligible[start:start + sa.shape[0]]
-            if rows.any():
-                corr.append(_row_pearson(sa[rows], sb[rows]))
-                overlap.append(_row_jaccard(sa[rows], sb[rows], neighbours))
+    if items.size >= 1 and half >= min_support:
+        for (_, sa), (_, sb) in zip(similarity_blocks(xa, alpha=alpha, rows=items),
+                                    similarity_blocks(xb, alpha=alpha, rows=items)):
+            corr.append(_row_pearson(sa, sb))
+            overlap.append(_row_jaccard(sa, sb, neighbours))
     r = np.concatenate(corr) if corr else np.array([])
     r = r[np.isfinite(r)]
     jac = np.concatenate(overlap) if overlap else np.array([])

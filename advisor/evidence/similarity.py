@@ -24,8 +24,8 @@ _BLOCK_CELLS = 4_000_000
 """Similarity cells per block (items in block x all items)."""
 
 
-def similarity_blocks(train: sp.csr_matrix, *,
-                      alpha: float = ALPHA) -> Iterator[tuple[int, np.ndarray]]:
+def similarity_blocks(train: sp.csr_matrix, *, alpha: float = ALPHA,
+                      rows: np.ndarray | None = None) -> Iterator[tuple[int, np.ndarray]]:
     """Yield blocks of rows of the conditional-probability similarity matrix.
 
     Parameters
@@ -34,11 +34,14 @@ def similarity_blocks(train: sp.csr_matrix, *,
         Binary interactions.
     alpha : float, optional
         Exponent on the neighbour's frequency.
+    rows : ndarray of int, optional
+        Compute only these items' rows, in this order (default: every item). Bounds the
+        cost when only a sample of items is needed.
 
     Yields
     ------
     start : int
-        Index of the block's first item.
+        Position of the block's first row: an item index, or an index into ``rows``.
     sim : ndarray of float32, shape (block, n_items)
         sim[i, j] = Freq(i, j) / (Freq(i) * Freq(j) ** alpha), zero on the diagonal and for
         items without training interactions.
@@ -71,10 +74,11 @@ def similarity_blocks(train: sp.csr_matrix, *,
     right = (train @ sp.diags(col_norm.astype(np.float32))).tocsr()
     left = (sp.diags(row_norm.astype(np.float32)) @ train.T).tocsr()
     block = max(1, _BLOCK_CELLS // max(n_items, 1))
-    for start in range(0, n_items, block):
-        stop = min(n_items, start + block)
-        sim = (left[start:stop] @ right).toarray().astype(np.float32, copy=False)
-        sim[np.arange(stop - start), np.arange(start, stop)] = 0.0
+    order = np.arange(n_items) if rows is None else np.asarray(rows, dtype=np.int64)
+    for start in range(0, order.size, block):
+        idx = order[start:start + block]
+        sim = (left[idx] @ right).toarray().astype(np.float32, copy=False)
+        sim[np.arange(idx.size), idx] = 0.0
         yield start, sim
 
 
