@@ -2,14 +2,23 @@
 
 Exit codes: 0 success; 2 bad option, config or rules file; 3 unreadable or malformed input;
 4 nothing left to audit; 5 reports could not be written; 6 history database unusable;
-10, 11, 12 a ``--fail-on`` gate tripped; 1 any other tool error.
+10, 11, 12 a ``--fail-on`` gate tripped; 130 / 143 interrupted by Ctrl-C (SIGINT) / SIGTERM;
+1 any other tool error.
+
+Interrupts: SIGTERM is turned into the same exception as Ctrl-C, so the report writer's
+rollback runs for both. While the reports are moved into place and the audit is recorded in
+the history, both signals are held and acted on right after, so an interrupt leaves either
+the previous reports and history or this run's, never a mix.
 """
 
 from __future__ import annotations
 
 import io
 import os
+import signal
 import sys
+import threading
+from contextlib import contextmanager
 from dataclasses import replace
 from pathlib import Path
 
@@ -23,8 +32,85 @@ from advisor.errors import AdvisorError, ConfigError
 EPILOG = """\b
 Exit codes: 0 done; 2 bad option, config or rules file; 3 unreadable or malformed input;
 4 nothing left to audit; 5 reports could not be written; 6 history database unusable;
-10/11/12 a --fail-on gate tripped (no-go / go lost / tier dropped); 1 other tool errors.
+10/11/12 a --fail-on gate tripped (no-go / go lost / tier dropped); 130/143 interrupted
+(Ctrl-C / SIGTERM); 1 other tool errors.
 """
+
+#: Exit codes of an interrupted run (128 + the signal number, as shells report them).
+INTERRUPT_CODES = {signal.SIGINT: 130, signal.SIGTERM: 143}
+
+
+class _Interrupted(KeyboardInterrupt):
+    """An interrupt by signal; ``committed`` when it arrived while the reports and the history
+    were being committed, so it was held until they were complete."""
+
+    def __init__(self, signum: int, *, committed: bool = False) -> None:
+        super().__init__(signal.Signals(signum).name)
+        self.signum = signum
+        self.committed = committed
+
+
+def _in_main_thread() -> bool:
+    return threading.current_thread() is threading.main_thread()
+
+
+@contextmanager
+def _sigterm_interrupts():
+    """SIGTERM raises like Ctrl-C for the duration, so ``finally`` blocks and the report
+    writer's rollback run (by default SIGTERM ends Python without running them)."""
+    if not _in_main_thread():
+        yield
+        return
+
+    def on_term(signum, _frame):
+        raise _Interrupted(signum)
+
+    old = signal.signal(signal.SIGTERM, on_term)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGTERM, old)
+
+
+@contextmanager
+def _signals_held():
+    """Hold SIGINT and SIGTERM while the reports and the history change together; act on a
+    held signal once both are complete. Signals the process ignores stay ignored."""
+    if not _in_main_thread():
+        yield
+        return
+    got: list[int] = []
+
+    def hold(signum, _frame):
+        got.append(signum)
+
+    old = {}
+    for sig in (signal.SIGINT, signal.SIGTERM):
+        if signal.getsignal(sig) is not signal.SIG_IGN:
+            old[sig] = signal.signal(sig, hold)
+    try:
+        yield
+    finally:
+        for sig, handler in old.items():
+            signal.signal(sig, handler)
+    if got:
+        raise _Interrupted(got[0], committed=True)
+
+
+def _stop(exc: KeyboardInterrupt, out: Path) -> None:
+    """Report an interrupt in one line and exit 130 (Ctrl-C) or 143 (SIGTERM)."""
+    signum = getattr(exc, "signum", signal.SIGINT)
+    name = "SIGTERM" if signum == signal.SIGTERM else "Ctrl-C (SIGINT)"
+    if getattr(exc, "committed", False):
+        what = (f"after this audit's reports in {out} and its history entry were written in "
+                "full")
+    else:
+        what = (f"before the audit finished: the previous reports in {out} and the history "
+                "were left as they were; run the audit again")
+    msg = Text("error: ", style="bold red")
+    msg.append(f"interrupted by {name} {what}.")
+    _stderr_console().print(msg, highlight=False, soft_wrap=True)
+    sys.exit(INTERRUPT_CODES.get(signum, 130))
 
 
 def _console(*, stderr: bool = False) -> Console:
@@ -86,6 +172,13 @@ def _audit_options(f):
         click.option("--no-history", is_flag=True, help="Do not record the audit in the history."),
         click.option("--quiet", is_flag=True,
                      help="Print nothing but errors (files are still written)."),
+        click.option("--user-ids", "user_ids", type=click.Choice(["omit", "hashed"]),
+                     default="omit", show_default=True,
+                     help="User and session ids in the report files (quarantine.csv): left "
+                          "out, or replaced by salted hashes (HMAC-SHA256, needs --salt)."),
+        click.option("--salt", envvar="ADVISOR_ID_SALT", show_envvar=True, metavar="TEXT",
+                     help="Secret key of the --user-ids hashed hashes; never written to a "
+                          "report."),
     ]
     for opt in reversed(opts):
         f = opt(f)
@@ -113,19 +206,29 @@ def _make_config(config_file, rules_file, user_col, item_col, time_col, event_co
     return cfg
 
 
-def _run_and_write(logs, catalog, cfg, out, *, history_path, no_history, quiet, editorial_rows):
+def _privacy(user_ids: str, salt: str | None):
+    from advisor.report.privacy import id_policy
+
+    return id_policy(user_ids, salt)
+
+
+def _run_and_write(logs, catalog, cfg, out, *, history_path, no_history, quiet, editorial_rows,
+                   privacy):
     """One audit: run, write every report, record it; returns (result, written, previous).
 
     The HTML report shows the trend including this audit, so the history is read first and
-    this audit's entry joins it in memory; the history is written last, after the reports.
+    this audit's entry joins it in memory. The history is recorded once every report is in
+    place, with interrupts held, and a failure to record it puts the previous reports back:
+    reports and history change together or not at all.
     """
     from advisor.history import (default_history_path, entry_from_result, forecast_readiness,
                                  load_history, record_audit)
     from advisor.pipeline import audit as run_audit
-    from advisor.report.files import write_reports
+    from advisor.report.files import check_output_folder, write_reports
     from advisor.report.html import render_html
     from advisor.report.terminal import render
 
+    check_output_folder(out)  # before the audit: a read-only --out fails in a second
     progress = None
     status = None
     err = _stderr_console()
@@ -146,12 +249,13 @@ def _run_and_write(logs, catalog, cfg, out, *, history_path, no_history, quiet, 
         previous = earlier[-1] if earlier else None
         buf = io.StringIO()
         render(result, Console(file=buf, width=100, color_system=None),
-               editorial_rows=editorial_rows)
+               editorial_rows=editorial_rows, privacy_note=privacy.note)
         html = render_html(result, history=entries if len(entries) > 1 else None,
                            forecast=forecast_readiness(entries) if len(entries) > 1 else None)
-        written = write_reports(result, out, text=buf.getvalue(), html=html)
-        if path is not None:
-            record_audit(result, path)
+        with _signals_held():
+            written = write_reports(
+                result, out, text=buf.getvalue(), html=html, privacy=privacy,
+                then=None if path is None else (lambda: record_audit(result, path)))
     finally:
         if status is not None:
             status.stop()
@@ -198,8 +302,8 @@ def _gate(result, previous, fail_on) -> int:
               help="Exit non-zero for a pipeline to gate on: no-go (10), go-lost: go last "
                    "audit, no-go now (11), tier-drop: headline tier fell (12). Repeatable.")
 def audit(logs, catalog, config_file, rules_file, user_col, item_col, time_col, event_col,
-          value_col, seed, backtest, history_path, no_history, quiet, out, as_of,
-          editorial_rows, as_json, fail_on):
+          value_col, seed, backtest, history_path, no_history, quiet, user_ids, salt, out,
+          as_of, editorial_rows, as_json, fail_on):
     """Audit LOGS (a file or a folder of weekly drops) and write reports to --out.
 
     \b
@@ -213,20 +317,25 @@ def audit(logs, catalog, config_file, rules_file, user_col, item_col, time_col, 
     from advisor.report.terminal import render
 
     try:
-        cfg = _make_config(config_file, rules_file, user_col, item_col, time_col, event_col,
-                           value_col, seed, backtest, as_of)
-        result, written, previous = _run_and_write(
-            logs, catalog, cfg, out, history_path=history_path, no_history=no_history,
-            quiet=quiet, editorial_rows=editorial_rows)
+        with _sigterm_interrupts():
+            cfg = _make_config(config_file, rules_file, user_col, item_col, time_col,
+                               event_col, value_col, seed, backtest, as_of)
+            privacy = _privacy(user_ids, salt)
+            result, written, previous = _run_and_write(
+                logs, catalog, cfg, out, history_path=history_path, no_history=no_history,
+                quiet=quiet, editorial_rows=editorial_rows, privacy=privacy)
     except AdvisorError as exc:
         _fail(exc)
         return
+    except KeyboardInterrupt as exc:
+        _stop(exc, out)
+        return
     if not quiet:
         if as_json:
-            click.echo(to_json(result))
+            click.echo(to_json(result, privacy=privacy))
         else:
             render(result, _console(), written=[str(out / w) for w in written],
-                   editorial_rows=editorial_rows)
+                   editorial_rows=editorial_rows, privacy_note=privacy.note)
     code = _gate(result, previous, fail_on)
     if code:
         _stderr_console().print(Text(f"gate tripped: exit {code} (see --fail-on)"))
@@ -253,7 +362,8 @@ def _week_ends(start: str, end: str) -> list[str]:
               default=Path("advisor-report"), show_default=True,
               help="Folder for the history; each week's reports go to OUT/weeks/DATE.")
 def backfill(logs, catalog, config_file, rules_file, user_col, item_col, time_col, event_col,
-             value_col, seed, backtest, history_path, no_history, quiet, start, end, out):
+             value_col, seed, backtest, history_path, no_history, quiet, user_ids, salt, start,
+             end, out):
     """Audit every past week from --from to --to (as of each Sunday) and fill the history.
 
     \b
@@ -263,23 +373,31 @@ def backfill(logs, catalog, config_file, rules_file, user_col, item_col, time_co
     """
     from advisor.history import default_history_path
 
+    week_out = out
     try:
-        weeks = _week_ends(start, end)
-        if not weeks:
-            raise ConfigError(f"no Sunday between --from {start} and --to {end}; widen the range")
-        path = history_path or default_history_path(out)
-        for day in weeks:
-            cfg = _make_config(config_file, rules_file, user_col, item_col, time_col,
-                               event_col, value_col, seed, backtest, day)
-            result, _, _ = _run_and_write(logs, catalog, cfg, out / "weeks" / day,
-                                          history_path=path, no_history=no_history,
-                                          quiet=quiet, editorial_rows=10)
-            if not quiet:
-                d = result.decision
-                click.echo(f"{day}: {d.headline_tier or 'no tier'}; personalised rows "
-                           f"{'GO' if d.personalised_go else 'NO-GO'}")
+        with _sigterm_interrupts():
+            weeks = _week_ends(start, end)
+            if not weeks:
+                raise ConfigError(f"no Sunday between --from {start} and --to {end}; widen "
+                                  "the range")
+            privacy = _privacy(user_ids, salt)
+            path = history_path or default_history_path(out)
+            for day in weeks:
+                week_out = out / "weeks" / day
+                cfg = _make_config(config_file, rules_file, user_col, item_col, time_col,
+                                   event_col, value_col, seed, backtest, day)
+                result, _, _ = _run_and_write(logs, catalog, cfg, week_out,
+                                              history_path=path, no_history=no_history,
+                                              quiet=quiet, editorial_rows=10, privacy=privacy)
+                if not quiet:
+                    d = result.decision
+                    click.echo(f"{day}: {d.headline_tier or 'no tier'}; personalised rows "
+                               f"{'GO' if d.personalised_go else 'NO-GO'}")
     except AdvisorError as exc:
         _fail(exc)
+        return
+    except KeyboardInterrupt as exc:
+        _stop(exc, week_out)
         return
     if not quiet and not no_history:
         click.echo(f"history: {path} (see `advisor history --history {path}`)")

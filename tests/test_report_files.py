@@ -138,15 +138,21 @@ def test_quarantine_csv_has_one_row_per_quarantined_row_with_reason_file_and_lin
 
 
 def test_quarantine_csv_file_and_line_point_at_the_raw_row(sample_audit):
-    """Reading the named file at the named line gives back the quarantined row's ids."""
-    rows = _csv_rows(quarantine_csv(sample_audit))
+    """Reading the named file at the named line gives back the quarantined row's ids
+    (the user id as the HMAC-SHA256 the hashed mode writes; by default it is left out)."""
+    import hmac
+
+    from advisor.report.privacy import IdPolicy
+
+    rows = _csv_rows(quarantine_csv(sample_audit, privacy=IdPolicy("hashed", "k")))
     cache: dict[str, list[str]] = {}
     for row in rows:
         if row["file"] not in cache:
             with gzip.open(SAMPLE_EVENTS / row["file"], "rt", encoding="utf-8") as fh:
                 cache[row["file"]] = fh.read().splitlines()
         raw = next(csv.reader([cache[row["file"]][int(row["line"]) - 1]]))  # lines count from 1
-        assert raw[0] == row["user"] and raw[1] == row["item"] and raw[2] == row["ts"], row
+        user = raw[0] and hmac.new(b"k", raw[0].encode(), hashlib.sha256).hexdigest()[:16]
+        assert user == row["user"] and raw[1] == row["item"] and raw[2] == row["ts"], row
 
 
 def test_cold_user_csv_agrees_with_the_cold_user_counts(sample_audit):

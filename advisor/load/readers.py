@@ -14,6 +14,7 @@ import gzip
 import hashlib
 import io
 import json
+import re
 import zlib
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -155,6 +156,12 @@ def list_input_files(path: str | Path) -> tuple[list[tuple[Path, str]], list[str
 # --------------------------------------------------------------------------- bytes and text
 
 
+def _one_line(exc: BaseException) -> str:
+    """A parser's error text on one line: Arrow's and zlib's messages can span lines, and a
+    message that names a file should stay one line on the terminal."""
+    return " ".join(str(exc).split()) or type(exc).__name__
+
+
 def _read_bytes(path: Path, source: str) -> bytes:
     try:
         return path.read_bytes()
@@ -176,8 +183,8 @@ def _decompress(data: bytes, source: str, named_gz: bool) -> tuple[bytes, bool]:
         return gzip.decompress(data), True
     except (OSError, EOFError, zlib.error) as exc:
         raise LogFormatError(
-            f"{source}: the gzip data is corrupt or truncated ({exc}); copy or export the "
-            "file again, or check it with 'gzip -t'."
+            f"{source}: the gzip data is corrupt or truncated ({_one_line(exc)}); copy or "
+            "export the file again, or check it with 'gzip -t'."
         ) from None
 
 
@@ -251,9 +258,9 @@ def _csv_module_parse(text: str, sep: str, source: str) -> tuple[list[str], list
             break
         except csv.Error as exc:
             raise LogFormatError(
-                f"{source} line {start}: cannot be parsed as delimited text ({exc}); a quoted "
-                "value is probably not closed or has text after the closing quote. Fix the "
-                "quoting on that line."
+                f"{source} line {start}: cannot be parsed as delimited text "
+                f"({_one_line(exc)}); a quoted value is probably not closed or has text after "
+                "the closing quote. Fix the quoting on that line."
             ) from None
         prev = reader.line_num
         if not rec:
@@ -340,6 +347,32 @@ def _arrow_to_str(arr: pa.ChunkedArray, sep: str) -> pa.ChunkedArray | None:
     return None
 
 
+def _check_utf8(col: pa.ChunkedArray, name: str, source: str) -> None:
+    """Raise when a string column holds bytes that are not UTF-8.
+
+    Arrow does not check the text it reads from Parquet; an invalid value would fail deep in
+    pandas later. The first bad value is named by its row and byte offset.
+    """
+    try:
+        col.validate(full=True)
+        return
+    except pa.ArrowInvalid:
+        pass
+    for row, value in enumerate(col.cast(pa.binary()).to_pylist()):
+        if value is None:
+            continue
+        try:
+            value.decode("utf-8")
+        except UnicodeDecodeError as exc:
+            raise LogFormatError(
+                f"{source} row {row + 1}: column {name!r} holds byte {value[exc.start]:#04x} "
+                f"at byte offset {exc.start} of its value, which is not valid UTF-8; export "
+                "the file again with that column as UTF-8 text."
+            ) from None
+    raise LogFormatError(  # pragma: no cover - Arrow found a fault Python's decoder did not
+        f"{source}: column {name!r} is not valid text; export the file again.")
+
+
 def _arrow_frame(table: pa.Table, names: list[str], source: str, sep: str) -> pd.DataFrame:
     out = {}
     for name in names:
@@ -349,6 +382,7 @@ def _arrow_frame(table: pa.Table, names: list[str], source: str, sep: str) -> pd
                 f"{source}: column {name!r} has type {table.column(name).type}, which cannot "
                 "be read as text; store it as text or numbers."
             )
+        _check_utf8(col, name, source)
         out[name] = col.to_pandas()
     return _strings(pd.DataFrame(out))
 
@@ -360,8 +394,8 @@ def _read_parquet(data: bytes, source: str, sep: str) -> _Table:
         n = pf.metadata.num_rows
     except (pa.ArrowException, OSError, ValueError) as exc:
         raise LogFormatError(
-            f"{source}: not a valid Parquet file ({exc}); export it again, or check that the "
-            "suffix matches the content."
+            f"{source}: not a valid Parquet file ({_one_line(exc)}); export it again, or check "
+            "that the suffix matches the content."
         ) from None
     if n == 0:
         raise LogFormatError(
@@ -374,7 +408,7 @@ def _read_parquet(data: bytes, source: str, sep: str) -> _Table:
             table = pf.read(columns=names)
         except (pa.ArrowException, OSError, ValueError) as exc:
             raise LogFormatError(
-                f"{source}: the Parquet data is corrupt ({exc}); export the file again."
+                f"{source}: the Parquet data is corrupt ({_one_line(exc)}); export the file again."
             ) from None
         return _arrow_frame(table, names, source, sep)
 
@@ -427,7 +461,7 @@ def _read_json_lines_python(text: str, source: str, sep: str) -> _Table:
             rec = json.loads(line)
         except json.JSONDecodeError as exc:
             raise LogFormatError(
-                f"{source} line {i}: not valid JSON ({exc.msg} at column {exc.colno}); JSON "
+                f"{source} line {i}: not valid JSON ({exc.msg}: column {exc.colno}); JSON "
                 "Lines needs one complete JSON object per line. Fix or remove that line."
             ) from None
         if not isinstance(rec, dict):
@@ -440,6 +474,14 @@ def _read_json_lines_python(text: str, source: str, sep: str) -> _Table:
     return _records_table(records, np.asarray(lines, dtype=np.int64), source, sep, "jsonl")
 
 
+#: A run of digits longer than float64 holds exactly (2**53 has 16 digits).
+_LONG_DIGITS = re.compile(rb"[0-9]{16,}")
+
+
+class _Fallback(Exception):
+    """Arrow's JSON result cannot be trusted; read with the json module (private)."""
+
+
 def _read_json_lines(text: str, source: str, sep: str) -> _Table:
     # Fast path: Arrow's JSON reader. It infers ISO strings as timestamps (dropping the zone
     # text), so such columns are read again as plain strings. Anything unusual (mixed types
@@ -450,6 +492,13 @@ def _read_json_lines(text: str, source: str, sep: str) -> _Table:
     raw = text.encode("utf-8")
     try:
         table = pajson.read_json(io.BytesIO(raw))
+        # Arrow reads an integer beyond int64 (or one in a column that also holds fractions)
+        # as a float64: two ids such as 12345678901234567891 and ...892 would become one. A
+        # column of floats next to a run of 16+ digits (beyond float64's 2**53) goes to the
+        # json module, whose integers are exact.
+        if (any(pa.types.is_floating(f.type) for f in table.schema)
+                and _LONG_DIGITS.search(raw) is not None):
+            raise _Fallback
         stamped = [f.name for f in table.schema if pa.types.is_timestamp(f.type)]
         if stamped:
             schema = pa.schema([(name, pa.string()) for name in stamped])
@@ -458,7 +507,7 @@ def _read_json_lines(text: str, source: str, sep: str) -> _Table:
         ok = table.num_rows == len(nonblank) and all(
             _arrow_to_str(table.column(i)[:1], sep) is not None
             for i in range(table.num_columns))
-    except pa.ArrowException:
+    except (pa.ArrowException, _Fallback):
         ok = False
     if not ok:
         return _read_json_lines_python(text, source, sep)

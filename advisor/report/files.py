@@ -14,6 +14,7 @@ import math
 import os
 import shutil
 import tempfile
+from collections.abc import Callable
 from pathlib import Path
 
 import numpy as np
@@ -21,6 +22,7 @@ import pandas as pd
 
 from advisor.errors import OutputError
 from advisor.pipeline import AuditResult
+from advisor.report.privacy import IdPolicy, protect_ids
 
 JSON_NAME = "audit.json"
 EDITORIAL_NAME = "editorial_placement.csv"
@@ -80,9 +82,12 @@ def _nan_to_none(x):
     return x
 
 
-def to_json(result: AuditResult) -> str:
-    """The JSON report (strict JSON: NaN becomes null)."""
-    return json.dumps(_nan_to_none(result.to_dict()), default=_json_default, indent=2,
+def to_json(result: AuditResult, *, privacy: IdPolicy | None = None) -> str:
+    """The JSON report (strict JSON: NaN becomes null), with a ``privacy`` entry saying how
+    user ids were treated in the report files (default: left out); never the salt."""
+    doc = result.to_dict()
+    doc["privacy"] = (privacy or IdPolicy()).to_dict()
+    return json.dumps(_nan_to_none(doc), default=_json_default, indent=2,
                       allow_nan=False, ensure_ascii=False)
 
 
@@ -112,16 +117,22 @@ def cold_users_csv(result: AuditResult) -> str:
     return _csv(df)
 
 
-def quarantine_csv(result: AuditResult) -> str:
-    """Rows set aside, each with its reason, file and line."""
-    return _csv(result.quarantine.rename(columns={"_source": "file", "_line": "line"}))
+def quarantine_csv(result: AuditResult, *, privacy: IdPolicy | None = None) -> str:
+    """Rows set aside, each with its reason, file and line; user and session ids left out
+    or hashed as ``privacy`` says (default: left out)."""
+    rows = protect_ids(result.quarantine, privacy or IdPolicy())
+    return _csv(rows.rename(columns={"_source": "file", "_line": "line"}))
 
 
 def write_reports(result: AuditResult, out_dir: str | Path, *, text: str | None = None,
-                  html: str | None = None) -> list[str]:
+                  html: str | None = None, privacy: IdPolicy | None = None,
+                  then: Callable[[], object] | None = None) -> list[str]:
     """Write every report file into ``out_dir`` atomically; return the names written.
 
     ``text`` (the terminal report) and ``html`` (the HTML report) are written when given.
+    ``privacy`` says how user ids appear (default: left out). ``then`` is called once every
+    file is in place; if it raises, the previous reports are put back (see
+    :func:`write_atomically`).
 
     Raises
     ------
@@ -130,17 +141,52 @@ def write_reports(result: AuditResult, out_dir: str | Path, *, text: str | None 
     """
     out = Path(out_dir)
     files = {
-        JSON_NAME: to_json(result),
+        JSON_NAME: to_json(result, privacy=privacy),
         EDITORIAL_NAME: editorial_csv(result),
         COLD_USERS_NAME: cold_users_csv(result),
-        QUARANTINE_NAME: quarantine_csv(result),
+        QUARANTINE_NAME: quarantine_csv(result, privacy=privacy),
     }
     if text is not None:
         files[TEXT_NAME] = text
     if html is not None:
         files[HTML_NAME] = html
-    write_atomically(out, files)
+    write_atomically(out, files, then=then)
     return list(files)
+
+
+def check_output_folder(out_dir: str | Path) -> None:
+    """Fail fast, before a long audit, when ``out_dir`` cannot receive report files.
+
+    An existing folder is tested by creating and removing a hidden empty file in it (the only
+    test that sees a read-only file system for every user, root included); a folder still to
+    be made is judged by its nearest existing parent (which must be a writable folder), so
+    nothing is created or written outside ``out_dir``.
+
+    Raises
+    ------
+    OutputError
+        If the folder, or the parent it would be made in, is not a writable folder.
+    """
+    out = Path(out_dir)
+    if out.is_dir():
+        try:
+            fd, probe = tempfile.mkstemp(prefix=".advisor-probe.", suffix=".tmp", dir=out)
+            os.close(fd)
+            os.unlink(probe)
+        except OSError as exc:
+            raise OutputError(
+                f"cannot write reports into {out} ({exc.strerror or exc}); the folder is "
+                "read-only or full. Free space, make it writable, or choose --out") from None
+        return
+    parent = out
+    while not parent.is_dir():
+        if parent.exists() or parent.parent == parent:
+            raise OutputError(f"cannot create the output folder {out} ({parent} is not a "
+                              "folder); choose another folder with --out")
+        parent = parent.parent
+    if not os.access(parent, os.W_OK | os.X_OK):
+        raise OutputError(f"cannot create the output folder {out} ({parent} is read-only); "
+                          "choose another folder with --out")
 
 
 def _file_mode() -> int:
@@ -150,16 +196,29 @@ def _file_mode() -> int:
     return 0o666 & ~mask
 
 
-def write_atomically(out: Path, files: dict[str, str]) -> None:
+def write_atomically(out: Path, files: dict[str, str], *,
+                     then: Callable[[], object] | None = None) -> None:
     """Write all ``files`` (name -> text) into ``out``; all land or none is replaced.
+
+    Parameters
+    ----------
+    out : Path
+        The output folder (created when missing).
+    files : dict
+        File name -> text.
+    then : callable, optional
+        Called after every file is in place and before the previous versions are dropped:
+        the commit of another store that must change together with the reports (the audit
+        history). If it raises, the previous reports are put back and the error propagates.
 
     Notes
     -----
     Every file is written in full to a temporary name first, then moved over its final name
     with :func:`os.replace`. Files already in ``out`` are kept as hard links (copies where
-    links are not supported) until every move has succeeded, so an error part-way through
-    puts the earlier report back. Only a hard kill between two moves can leave a mix of whole
-    old and whole new files; a half-written file is never left behind.
+    links are not supported) until every move (and ``then``) has succeeded, so an error or an
+    interrupt part-way through puts the earlier report back. Only a hard kill between two
+    moves can leave a mix of whole old and whole new files; a half-written file is never
+    left behind.
     """
     try:
         out.mkdir(parents=True, exist_ok=True)
@@ -167,6 +226,7 @@ def write_atomically(out: Path, files: dict[str, str]) -> None:
         raise OutputError(f"cannot create the output folder {out} ({exc.strerror}); "
                           "choose another folder with --out") from None
     temps: list[tuple[str, Path]] = []
+    committing = False
     backups: dict[str, Path] = {}
     moved: list[str] = []
     mode = _file_mode()
@@ -186,11 +246,14 @@ def write_atomically(out: Path, files: dict[str, str]) -> None:
         for name, tmp in temps:
             os.replace(tmp, out / name)
             moved.append(name)
+        if then is not None:
+            committing = True
+            then()
     except BaseException as exc:
         _roll_back(out, moved, backups)
         for _, tmp in temps:
             tmp.unlink(missing_ok=True)
-        if isinstance(exc, OSError):
+        if isinstance(exc, OSError) and not committing:
             raise OutputError(
                 f"cannot write reports into {out} ({exc.strerror or exc}); check that the "
                 "folder is writable and the disk has space, or choose --out") from None

@@ -42,18 +42,22 @@ def status(s: str) -> Text:
 
 
 def render(result: AuditResult, console: Console, *, written: list[str] | None = None,
-           editorial_rows: int = 10) -> None:
-    """Print the whole audit to ``console``."""
-    for part in sections(result, written=written, editorial_rows=editorial_rows):
+           editorial_rows: int = 10, privacy_note: str | None = None) -> None:
+    """Print the whole audit to ``console``; ``privacy_note`` says how user ids were treated
+    in the report files (shown under data quality)."""
+    for part in sections(result, written=written, editorial_rows=editorial_rows,
+                         privacy_note=privacy_note):
         console.print(part)
 
 
-def sections(result: AuditResult, *, written=None, editorial_rows=10) -> list:
+def sections(result: AuditResult, *, written=None, editorial_rows=10,
+             privacy_note: str | None = None) -> list:
     r = result
     out = [_headline(r), _ladder(r), _surfaces(r)]
     if r.evidence is not None:
         out.extend(evidence_tables(r.evidence))
-    out.extend([_profile(r), _quality(r), _cold(r, editorial_rows), _assumptions(r)])
+    out.extend([_profile(r), _quality(r, privacy_note), _cold(r, editorial_rows),
+                _assumptions(r)])
     if written:
         out.append(Text("Written: " + ", ".join(written), style="dim"))
     return out
@@ -166,7 +170,7 @@ def _profile(r: AuditResult) -> Table:
     return t
 
 
-def _quality(r: AuditResult) -> Group:
+def _quality(r: AuditResult, privacy_note: str | None = None) -> Group:
     q = r.quality
     head = Text()
     head.append("Data quality: ", style="bold")
@@ -187,6 +191,8 @@ def _quality(r: AuditResult) -> Group:
         lines.append(Text("- no problems found"))
     if len(q.issues) > len(shown):
         lines.append(Text(f"- ... {len(q.issues) - len(shown)} more in audit.json"))
+    if privacy_note:
+        lines.append(Text(f"User ids: {privacy_note}"))
     return Group(*lines)
 
 
