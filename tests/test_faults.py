@@ -280,9 +280,6 @@ def test_full_disk_keeps_the_previous_reports_and_the_next_run_works(previous, t
     assert _snapshot(out)["audit.json"] != before["audit.json"]
 
 
-@pytest.mark.xfail(strict=True, reason="history store: a full disk is reported as 'cannot "
-                   "read the history database (disk I/O error)', exit 6, and SQLite's -wal "
-                   "and -shm files are left behind")
 def test_full_disk_with_a_history_exits_5_and_leaves_no_file(previous, tmpfs):
     """With the disk full and a history in the folder: exit 5 and no new file."""
     out = _copy(previous, tmpfs / "out")

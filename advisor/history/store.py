@@ -23,6 +23,7 @@ from __future__ import annotations
 
 import json
 import sqlite3
+import shutil
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from datetime import datetime, timezone
@@ -30,7 +31,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 from advisor import __version__
-from advisor.errors import HistoryError
+from advisor.errors import AdvisorError, HistoryError, OutputError
 from advisor.history.entry import HistoryEntry, RuleGap, as_of_date, entry_from_result
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -94,6 +95,10 @@ _COLUMNS = ("as_of_date", "as_of", "recorded_utc", "fingerprint", "tool_version"
             "curve_train_users", "metrics")
 
 
+#: Free bytes below which a storage error is reported as a full disk.
+_LOW_SPACE = 1 << 20
+
+
 def schema_version() -> int:
     """The schema version this code writes (the number of migrations)."""
     return len(MIGRATIONS)
@@ -151,13 +156,26 @@ class HistoryStore:
             except OSError as exc:
                 raise HistoryError(f"{p}: cannot create the folder for the history database "
                                    f"({exc}); choose a writable output folder.") from None
-        elif p.stat().st_size > 0:
+        # SQLite creates -wal and -shm files beside a WAL database, even to read it; when
+        # opening fails for lack of storage (a full disk, a read-only folder) the ones this
+        # call made go again. Only then: after other failures another process may be using
+        # them, and removing a live -shm would break its locking.
+        sidecars = [Path(f"{p}{suffix}") for suffix in ("-wal", "-shm")]
+        new_sidecars = [f for f in sidecars if not f.exists()]
+        try:
+            self._open(p)
+        except OutputError:
+            for f in new_sidecars:
+                f.unlink(missing_ok=True)
+            raise
+
+    def _open(self, p: Path) -> None:
+        if p.exists() and p.stat().st_size > 0:
             self._inspect_read_only()
         try:
             conn = sqlite3.connect(str(p), timeout=self.timeout, isolation_level=None)
         except sqlite3.Error as exc:
-            raise HistoryError(f"{p}: cannot open the history database ({exc}); check the "
-                               "path and its permissions.") from None
+            raise self._error(exc, "open") from None
         self._conn = conn
         try:
             conn.execute(f"PRAGMA busy_timeout = {int(self.timeout * 1000)}")
@@ -233,9 +251,20 @@ class HistoryStore:
                 "looks hand-edited. It was left untouched; move it aside.")
         return version
 
-    def _error(self, exc: sqlite3.Error, action: str) -> HistoryError:
+    def _error(self, exc: sqlite3.Error, action: str) -> AdvisorError:
         p = self.path
         text = str(exc)
+        storage = "disk I/O error" in text or "disk is full" in text or "readonly" in text
+        if storage:
+            try:
+                full = shutil.disk_usage(p.parent).free < _LOW_SPACE
+            except OSError:
+                full = False
+            cause = ("No space left on device" if full else
+                     "the folder or file system is read-only, or the disk failed")
+            return OutputError(
+                f"{p}: cannot {action} the history database ({cause}; SQLite: {text}); free "
+                "some space or choose a writable --out (or --history), then run again.")
         if "locked" in text or "busy" in text:
             return HistoryError(
                 f"{p}: the history database stayed locked for {self.timeout:g} s (another "
