@@ -177,13 +177,29 @@ def test_declining_series_is_said_to_be_falling():
     assert crossing_weeks(t, y, 1000) == (None, None, None)
 
 
-def test_fewer_than_four_audits_give_a_reason():
-    """Three audits give a reason instead of fits and weeks."""
-    assert MIN_POINTS == 4
-    fc = forecast_readiness(entries_from([100, 150, 220]))
-    assert fc.reason.startswith("only 3 audit(s)")
+def test_fewer_than_three_audits_give_a_reason():
+    """Two audits give a reason instead of fits and weeks."""
+    assert MIN_POINTS == 3
+    fc = forecast_readiness(entries_from([100, 150]))
+    assert fc.reason.startswith("only 2 audit(s)")
     assert fc.users is None and fc.crossings == () and fc.next_tier is None
-    assert fit_growth([0, 1, 2], [1, 2, 4]) is None
+    assert fit_growth([0, 1], [1, 2]) is None
+
+
+def test_three_audits_give_a_fit_whose_interval_rests_on_one_degree_of_freedom():
+    """Three audits are enough for a fit; its slope interval uses t with 1 degree of freedom
+    (statsmodels OLS on log(users) against the week, ``conf_int``), 12.7 standard errors
+    each side, so only near-exact growth gives a narrow one."""
+    values = [100, 150, 230]
+    fit = fit_growth([0, 1, 2], values, form="exponential")
+    assert fit is not None and fit.points == 3
+    ols = sm.OLS(np.log(values), sm.add_constant(np.arange(3.0))).fit()
+    assert ols.df_resid == 1
+    low, high = ols.conf_int(0.05)[1]
+    assert math.isclose(fit.slope_low, low, rel_tol=1e-9)
+    assert math.isclose(fit.slope_high, high, rel_tol=1e-9)
+    # the half-width is t(0.975, 1 df) = 12.706 standard errors (scipy.stats.t.ppf)
+    assert math.isclose((high - low) / (2 * ols.bse[1]), stats.t.ppf(0.975, 1), rel_tol=1e-9)
 
 
 def _users_ge_5_gap(value: float, threshold: float = 300.0) -> RuleGap:

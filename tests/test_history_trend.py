@@ -136,10 +136,10 @@ def test_history_view_shows_trend_sparklines_and_forecast():
     assert "Assumption: Growth continues" in text
 
 
-def test_history_view_with_three_audits_says_too_short():
-    """With three audits the view gives the reason instead of a forecast."""
-    text = _render(weekly([100, 120, 150]))
-    assert "Only 3 audit(s) in the history" in text
+def test_history_view_with_two_audits_says_too_short():
+    """With two audits the view gives the reason instead of a forecast."""
+    text = _render(weekly([100, 120]))
+    assert "Only 2 audit(s) in the history" in text
 
 
 def test_ascii_history_view_is_plain_ascii():

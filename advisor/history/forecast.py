@@ -29,10 +29,10 @@ __all__ = ["ASSUMPTION", "DEFAULT_HORIZON_WEEKS", "FORMS", "MIN_POINTS", "Crossi
            "Forecast", "GrowthFit", "Projection", "TierReach", "crossing_weeks",
            "fit_growth", "forecast_readiness", "is_count_metric"]
 
-#: Fewest audits a growth fit is made from (common practice, no published source: with
-#: two parameters and fewer than four points the residual scatter, hence the interval,
-#: rests on one or two degrees of freedom).
-MIN_POINTS = 4
+#: Fewest audits a growth fit is made from. With two parameters, three points leave one
+#: degree of freedom: the t quantile (12.7 at 95%) makes the interval wide unless growth is
+#: near-exact, which is the honest answer after three weeks; fewer points give no interval.
+MIN_POINTS = 3
 
 #: Furthest a crossing is looked for, in weeks after the last audit (common practice, no
 #: published source: a year is already a long extrapolation from a few months of audits).
