@@ -167,6 +167,12 @@ def _audit_options(f):
         click.option("--seed", type=int, help="Seed of every random step (default 20261201)."),
         click.option("--backtest/--no-backtest", default=None,
                      help="Run the offline backtest and learning curve (default: on)."),
+        click.option("--engine", type=click.Choice(["pandas", "duckdb"]), default=None,
+                     help="Engine for reading, validation and counting: pandas (in memory, "
+                          "every format) or duckdb (out of core; Parquet and CSV). Default "
+                          "pandas."),
+        click.option("--threads", type=click.IntRange(1, 1024), default=None,
+                     help="Threads for the duckdb engine (default: all cores)."),
         click.option("--history", "history_path", type=click.Path(dir_okay=False, path_type=Path),
                      help="History database (default: history.sqlite in --out)."),
         click.option("--no-history", is_flag=True, help="Do not record the audit in the history."),
@@ -186,7 +192,7 @@ def _audit_options(f):
 
 
 def _make_config(config_file, rules_file, user_col, item_col, time_col, event_col, value_col,
-                 seed, backtest, as_of=None) -> AuditConfig:
+                 seed, backtest, as_of=None, engine=None, threads=None) -> AuditConfig:
     cfg = load_config(config_file)
     cols = {k: v for k, v in dict(user=user_col, item=item_col, ts=time_col,
                                   event=event_col, value=value_col).items() if v}
@@ -201,6 +207,10 @@ def _make_config(config_file, rules_file, user_col, item_col, time_col, event_co
         kw["seed"] = seed
     if backtest is not None:
         kw["backtest"] = backtest
+    if engine is not None:
+        kw["engine"] = engine
+    if threads is not None:
+        kw["threads"] = threads
     cfg = replace(cfg, **kw)
     validate_config(cfg)
     return cfg
@@ -302,8 +312,8 @@ def _gate(result, previous, fail_on) -> int:
               help="Exit non-zero for a pipeline to gate on: no-go (10), go-lost: go last "
                    "audit, no-go now (11), tier-drop: headline tier fell (12). Repeatable.")
 def audit(logs, catalog, config_file, rules_file, user_col, item_col, time_col, event_col,
-          value_col, seed, backtest, history_path, no_history, quiet, user_ids, salt, out,
-          as_of, editorial_rows, as_json, fail_on):
+          value_col, seed, backtest, engine, threads, history_path, no_history, quiet, user_ids,
+          salt, out, as_of, editorial_rows, as_json, fail_on):
     """Audit LOGS (a file or a folder of weekly drops) and write reports to --out.
 
     \b
@@ -319,7 +329,7 @@ def audit(logs, catalog, config_file, rules_file, user_col, item_col, time_col, 
     try:
         with _sigterm_interrupts():
             cfg = _make_config(config_file, rules_file, user_col, item_col, time_col,
-                               event_col, value_col, seed, backtest, as_of)
+                               event_col, value_col, seed, backtest, as_of, engine, threads)
             privacy = _privacy(user_ids, salt)
             result, written, previous = _run_and_write(
                 logs, catalog, cfg, out, history_path=history_path, no_history=no_history,
@@ -362,8 +372,8 @@ def _week_ends(start: str, end: str) -> list[str]:
               default=Path("advisor-report"), show_default=True,
               help="Folder for the history; each week's reports go to OUT/weeks/DATE.")
 def backfill(logs, catalog, config_file, rules_file, user_col, item_col, time_col, event_col,
-             value_col, seed, backtest, history_path, no_history, quiet, user_ids, salt, start,
-             end, out):
+             value_col, seed, backtest, engine, threads, history_path, no_history, quiet,
+             user_ids, salt, start, end, out):
     """Audit every past week from --from to --to (as of each Sunday) and fill the history.
 
     \b
@@ -385,7 +395,7 @@ def backfill(logs, catalog, config_file, rules_file, user_col, item_col, time_co
             for day in weeks:
                 week_out = out / "weeks" / day
                 cfg = _make_config(config_file, rules_file, user_col, item_col, time_col,
-                                   event_col, value_col, seed, backtest, day)
+                                   event_col, value_col, seed, backtest, day, engine, threads)
                 result, _, _ = _run_and_write(logs, catalog, cfg, week_out,
                                               history_path=path, no_history=no_history,
                                               quiet=quiet, editorial_rows=10, privacy=privacy)

@@ -557,3 +557,17 @@ def test_relabelled_users_and_items_give_the_same_metrics(sample_rows, no_backte
     original, _ = no_backtest_run
     assert relabelled["metrics"] == original["metrics"]
     assert _verdict(relabelled) == _verdict(original)
+
+
+def test_duckdb_engine_option_gives_the_same_metrics_as_the_default(tmp_path):
+    """--engine duckdb --threads 2 audits the sample to exactly the metrics of the default
+    engine (the engines' aggregates are compared in detail in test_aggregate_duckdb)."""
+    outs = {}
+    for name, extra in (("pandas", ()), ("duckdb", ("--engine", "duckdb", "--threads", "2"))):
+        result = run("audit", SAMPLE_EVENTS, "--catalog", SAMPLE_CATALOG, "--out",
+                     tmp_path / name, "--no-backtest", "--no-history", "--quiet", *extra)
+        assert result.exit_code == 0, result.output
+        outs[name] = json.loads((tmp_path / name / "audit.json").read_text())
+    assert outs["duckdb"]["run"]["config"]["engine"] == "duckdb"
+    assert outs["duckdb"]["metrics"] == outs["pandas"]["metrics"]
+    assert outs["duckdb"]["verdict"]["headline_tier"] == outs["pandas"]["verdict"]["headline_tier"]
