@@ -234,8 +234,9 @@ def _assumptions(r: AuditResult) -> Panel:
                  + (f" with overrides from {r.run.config['rules_file']}"
                     if r.run.config.get("rules_file") else "")
                  + "; `advisor rules` shows each threshold with its rationale and source.")
-    notes.append("Significant neighbour: Wilson lower bound of P(x|y) above x's base rate; with "
-                 "many pairs tested some are false positives.")
+    notes.append("Significant neighbour: Wilson lower bound of P(x|y) above x's base rate among "
+                 "users active after x first appeared (exposure inferred from activity, not "
+                 "impressions); with many pairs tested some are false positives.")
     notes.append("'More users needed' assumes the item's strongest observed co-consumption rate "
                  "holds as data grows: a planning estimate, not a promise.")
     if r.evidence is None:
