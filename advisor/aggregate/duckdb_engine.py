@@ -43,12 +43,10 @@ from advisor.config import AuditConfig
 from advisor.errors import ConfigError, InsufficientDataError
 from advisor.load.model import LOG_FIELDS, ColumnDetection, InputFile, RawCatalog
 from advisor.validate.anomalies import (
-    DROP_RATIO,
-    DROP_WINDOW,
     MIN_USERS_FOR_QUANTILE,
     ImplausibleUsers,
-    logging_gaps,
-    volume_drops,
+    RowLocator,
+    issues_from_daily,
 )
 from advisor.validate.checks import QUARANTINE_REASONS, _row_issues, build_catalog
 from advisor.validate.model import QualityIssue, QualityReport, ValidatedLog
@@ -440,42 +438,8 @@ class DuckDBEngine:
 
     def _anomaly_issues(self, bots: ImplausibleUsers, as_of: pd.Timestamp
                         ) -> tuple[list[QualityIssue], list[str]]:
-        """As :func:`advisor.validate.anomalies.anomaly_issues` (same messages)."""
-        config = self._config
-        issues: list[QualityIssue] = []
-        notes: list[str] = []
-        if bots.users:
-            self._con.register("adv_bots_df", pd.DataFrame({"key": list(bots.users)}))
-            pos = self._con.execute(
-                "SELECT min(pos) FROM adv_ev WHERE u IN (SELECT code FROM adv_udict "
-                "WHERE key IN (SELECT key FROM adv_bots_df))").fetchall()[0][0]
-            self._con.unregister("adv_bots_df")
-            file, line = self._where_pos(pos)
-            rules = []
-            if bots.by_volume:
-                rules.append(f"{len(bots.by_volume)} above {bots.volume_threshold:,.0f} counted "
-                             f"events, {config.implausible_factor:g} x the "
-                             f"{config.implausible_quantile:g} quantile of users' activity")
-            if bots.by_rate:
-                rules.append(f"{len(bots.by_rate)} with more than {config.max_events_per_hour} "
-                             "counted events in one clock hour")
-            top = bots.users[0]
-            if config.exclude_implausible:
-                what = ("They stay in the counts but are left out of co-occurrence and the "
-                        "backtest; set exclude_implausible = false under [audit] to keep them in")
-            else:
-                what = ("They are kept everywhere (exclude_implausible = false); set it to true "
-                        "under [audit] to leave them out of co-occurrence and the backtest")
-            issues.append(QualityIssue(
-                code="implausible_user", count=len(bots.users), unit="users",
-                severity="excluded" if config.exclude_implausible else "flagged",
-                first_file=file, first_line=line,
-                message=(f"{_count(len(bots.users), 'account')} beyond a person's activity, "
-                         "likely automated or shared "
-                         f"({'; '.join(rules)}); the busiest has "
-                         f"{bots.counted_events[top]:,} counted events (first at {file} line "
-                         f"{line}; ids are not printed). {what}, or raise max_events_per_hour or "
-                         "implausible_factor if they are real people.")))
+        """Daily counts and row look-ups in SQL; the issues themselves come from
+        :func:`advisor.validate.anomalies.issues_from_daily`, as on the pandas path."""
         days = self._df(f"SELECT adv_fdiv(ts, {_DAY_NS}) AS d, count(*) AS c FROM adv_ev "
                         "GROUP BY ALL ORDER BY 1")
         index = pd.to_datetime(days["d"].to_numpy(dtype=np.int64) * _DAY_NS, unit="ns",
@@ -483,41 +447,23 @@ class DuckDBEngine:
         full = pd.date_range(index.min(), index.max(), freq="D")
         daily = pd.Series(days["c"].to_numpy(dtype=np.int64), index=index).reindex(
             full, fill_value=0).astype(np.int64)
-        gaps = logging_gaps(daily)
-        if gaps:
-            resume = pd.Timestamp(gaps[0], tz="UTC") + pd.Timedelta(days=1)
-            file, line = self._first_at(f"ts >= {resume.value}")
-            shown = ", ".join(str(d) for d in gaps[:5]) + (" ..." if len(gaps) > 5 else "")
-            issues.append(QualityIssue(
-                code="logging_gap", count=len(gaps), unit="days", severity="flagged",
-                first_file=file, first_line=line,
-                message=(f"{_count(len(gaps), 'day')} without a single event inside the covered "
-                         f"span {daily.index[0].date()} to {daily.index[-1].date()}: {shown} "
-                         f"(logging resumes at {file} line {line}); a running service logs every "
-                         "day. Check whether logging was down or files are missing; activity "
-                         "over the span is understated.")))
-        drops = list(volume_drops(daily, window=DROP_WINDOW, ratio=DROP_RATIO))
-        if drops and pd.notna(as_of):
-            last = daily.index[-1]
-            cut = as_of < last + pd.Timedelta(days=1) - pd.Timedelta(microseconds=1)
-            if cut and drops[-1][0] == last.date():
-                drops.pop()
-                notes.append(f"The last day, {last.date()}, has few events but ends after the "
-                             "audit date, so it is probably incomplete; it is not reported as a "
-                             "drop.")
-        if drops:
-            day0 = pd.Timestamp(drops[0][0], tz="UTC")
-            file, line = self._first_at(f"ts >= {day0.value} AND ts < {day0.value + _DAY_NS}")
-            shown = ", ".join(f"{d} ({c:,} event{'s' * (c != 1)} against a median of {m:,.0f})"
-                              for d, c, m in drops[:5]) + (" ..." if len(drops) > 5 else "")
-            issues.append(QualityIssue(
-                code="volume_drop", count=len(drops), unit="days", severity="flagged",
-                first_file=file, first_line=line,
-                message=(f"{_count(len(drops), 'day')} below {DROP_RATIO:.0%} of the median daily "
-                         f"volume of the {DROP_WINDOW} days before: {shown}; first at {file} line "
-                         f"{line}. A partial export or a logging outage is likely; check those "
-                         "days' files.")))
-        return issues, notes
+        locate = RowLocator(
+            first_of_users=self._first_of_users,
+            first_from=lambda t: self._first_at(f"ts >= {t.value}"),
+            first_on_day=lambda d: self._first_at(
+                f"ts >= {d.value} AND ts < {d.value + _DAY_NS}"),
+        )
+        return issues_from_daily(daily, bots, as_of=as_of, config=self._config, locate=locate)
+
+    def _first_of_users(self, users: tuple[str, ...]) -> tuple[str, int]:
+        self._con.register("adv_bots_df", pd.DataFrame({"key": list(users)}))
+        try:
+            pos = self._con.execute(
+                "SELECT min(pos) FROM adv_ev WHERE u IN (SELECT code FROM adv_udict "
+                "WHERE key IN (SELECT key FROM adv_bots_df))").fetchall()[0][0]
+        finally:
+            self._con.unregister("adv_bots_df")
+        return self._where_pos(pos)
 
     # ------------------------------------------------------------------ aggregate
 

@@ -8,6 +8,7 @@ caller can state and change it.
 from __future__ import annotations
 
 import datetime as dt
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -230,6 +231,19 @@ def volume_drops(
     return tuple((d.date(), int(daily[d]), float(ref[d])) for d in daily.index[hit.to_numpy()])
 
 
+@dataclass(frozen=True, slots=True)
+class RowLocator:
+    """How an engine points a message at the first matching row: each function returns the
+    ``(file, line)`` of the earliest such row."""
+
+    first_of_users: Callable[[tuple[str, ...]], tuple[str, int]]
+    """First row of any of these users."""
+    first_from: Callable[[pd.Timestamp], tuple[str, int]]
+    """First row at or after this instant."""
+    first_on_day: Callable[[pd.Timestamp], tuple[str, int]]
+    """First row on the UTC day starting at this instant."""
+
+
 def anomaly_issues(
     events: pd.DataFrame,
     bots: ImplausibleUsers,
@@ -255,12 +269,31 @@ def anomaly_issues(
     (list of QualityIssue, list of str)
         The issues (rows stay in the events) and notes for the report.
     """
+    ts = events["ts"].reset_index(drop=True)  # labels = positions, for _row
+    one_day = pd.Timedelta(days=1)
+    locate = RowLocator(
+        first_of_users=lambda users: _row(
+            events, int(np.flatnonzero(events["user"].isin(users).to_numpy())[0])),
+        first_from=lambda t: _row(events, ts[ts >= t].idxmin()),
+        first_on_day=lambda d: _row(events, ts[(ts >= d) & (ts < d + one_day)].idxmin()),
+    )
+    return issues_from_daily(daily_counts(ts), bots, as_of=as_of, config=config, locate=locate)
+
+
+def issues_from_daily(
+    daily: pd.Series,
+    bots: ImplausibleUsers,
+    *,
+    as_of: pd.Timestamp,
+    config: AuditConfig,
+    locate: RowLocator,
+) -> tuple[list[QualityIssue], list[str]]:
+    """The anomaly issues from daily event counts (every day of the span, zeros included);
+    shared by both engines so their messages cannot drift apart."""
     issues: list[QualityIssue] = []
     notes: list[str] = []
     if bots.users:
-        mask = events["user"].isin(bots.users).to_numpy()
-        first = int(np.flatnonzero(mask)[0])
-        file, line = _row(events, first)
+        file, line = locate.first_of_users(tuple(bots.users))
         rules = []
         if bots.by_volume:
             rules.append(f"{len(bots.by_volume)} above {bots.volume_threshold:,.0f} counted "
@@ -287,12 +320,10 @@ def anomaly_issues(
                      f"{line}; ids are not printed). {what}, or raise max_events_per_hour or "
                      "implausible_factor if "
                      "they are real people.")))
-    ts = events["ts"].reset_index(drop=True)  # labels = positions, for _row
-    daily = daily_counts(ts)
     gaps = logging_gaps(daily)
     if gaps:
         resume = pd.Timestamp(gaps[0], tz="UTC") + pd.Timedelta(days=1)
-        file, line = _row(events, ts[ts >= resume].idxmin())
+        file, line = locate.first_from(resume)
         shown = ", ".join(str(d) for d in gaps[:5]) + (" ..." if len(gaps) > 5 else "")
         issues.append(QualityIssue(
             code="logging_gap", count=len(gaps), unit="days", severity="flagged",
@@ -312,8 +343,7 @@ def anomaly_issues(
                          "date, so it is probably incomplete; it is not reported as a drop.")
     if drops:
         day0 = pd.Timestamp(drops[0][0], tz="UTC")
-        on_day = ts[(ts >= day0) & (ts < day0 + pd.Timedelta(days=1))]
-        file, line = _row(events, on_day.idxmin())
+        file, line = locate.first_on_day(day0)
         shown = ", ".join(f"{d} ({c:,} event{'s' * (c != 1)} against a median of {m:,.0f})"
                           for d, c, m in drops[:5]) + (" ..." if len(drops) > 5 else "")
         issues.append(QualityIssue(
