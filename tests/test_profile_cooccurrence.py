@@ -301,3 +301,42 @@ def test_exposed_users_smaller_than_support_is_rejected():
     x = sp.csr_matrix([[1, 1], [1, 0], [0, 1]])
     with pytest.raises(LogFormatError, match="exposed_users"):
         cooccurrence_profile(x, exposed_users=np.array([1, 2]))
+
+
+def test_false_discovery_control_keeps_noise_items_without_neighbours():
+    """On a log with no structure (users take items by popularity alone), per-pair Wilson
+    tests give most items three or more 'significant' neighbours; with Benjamini-Hochberg
+    control (Benjamini & Hochberg 1995) the share stays far below the shipped rule's 0.5
+    (planted structure, three seeds)."""
+    for seed in (1, 2, 3):
+        rng = np.random.default_rng(seed)
+        pop = 1.0 / np.arange(1, 201)  # Zipf-like popularity over 200 items
+        taken = rng.uniform(size=(2000, 200)) < 0.02 * pop / pop.mean()
+        x = sp.csr_matrix(taken.astype(np.float32))
+        naive = cooccurrence_profile(x, k_thresholds=(3,))
+        fdr = cooccurrence_profile(x, k_thresholds=(3,), false_discovery_control=True)
+        assert fdr.pairs_significant <= naive.pairs_significant
+        assert fdr.interaction_share[0] < 0.2
+
+
+def test_false_discovery_control_keeps_planted_clusters():
+    """Two planted taste clusters keep most within-cluster pairs significant under the
+    Benjamini-Hochberg procedure (planted structure)."""
+    rng = np.random.default_rng(5)
+    users, items = 600, 40
+    cluster = rng.integers(0, 2, users)
+    item_cluster = np.arange(items) % 2
+    prob = np.where(cluster[:, None] == item_cluster[None, :], 0.4, 0.02)
+    x = sp.csr_matrix((rng.uniform(size=(users, items)) < prob).astype(np.float32))
+    fdr = cooccurrence_profile(x, k_thresholds=(10,), false_discovery_control=True)
+    assert np.median(fdr.significant_neighbours) >= 15  # of 19 same-cluster items
+
+
+def test_significant_pairs_matches_the_wilson_rule_for_a_single_test():
+    """With one test, the score-test p-value below (1 - confidence) / 2 is the same call as
+    the Wilson lower bound above the base rate (statsmodels proportion_confint, wilson)."""
+    from advisor.profile.cooccurrence import significant_pairs
+
+    for both, n_y, base in [(12, 40, 0.15), (9, 40, 0.15), (5, 10, 0.2), (30, 300, 0.08)]:
+        low, _ = proportion_confint(both, n_y, alpha=0.05, method="wilson")
+        assert significant_pairs([both], [n_y], [base], tests=1)[0] == (low > base)

@@ -99,7 +99,8 @@ def build_profile(log: ValidatedLog, agg: Aggregates, config: AuditConfig,
     cooc = cooccurrence_profile(matrix, confidence=config.confidence,
                                 min_pair_users=config.min_pair_users,
                                 item_weights=agg.item_events.astype(float),
-                                exposed_users=exposed_users(agg, config.exclude_implausible))
+                                exposed_users=exposed_users(agg, config.exclude_implausible),
+                                false_discovery_control=True)
     ratings = _ratings(events, config)
     cats = None
     if log.catalog is not None and log.catalog.has_categories:
