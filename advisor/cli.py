@@ -326,6 +326,10 @@ def audit(logs, catalog, config_file, rules_file, user_col, item_col, time_col, 
     from advisor.report.files import to_json
     from advisor.report.terminal import render
 
+    compared = sorted(set(fail_on) & {"go-lost", "tier-drop"})
+    if compared and no_history:
+        raise click.UsageError(f"--fail-on {' / '.join(compared)} compares with the previous "
+                               "audit in the history; drop --no-history or that gate")
     try:
         with _sigterm_interrupts():
             cfg = _make_config(config_file, rules_file, user_col, item_col, time_col,
@@ -346,6 +350,9 @@ def audit(logs, catalog, config_file, rules_file, user_col, item_col, time_col, 
         else:
             render(result, _console(), written=[str(out / w) for w in written],
                    editorial_rows=editorial_rows, privacy_note=privacy.note)
+    if compared and previous is None:
+        _stderr_console().print(Text(f"note: --fail-on {' / '.join(compared)} cannot trip "
+                                     "yet: the history has no earlier audit to compare with"))
     code = _gate(result, previous, fail_on)
     if code:
         _stderr_console().print(Text(f"gate tripped: exit {code} (see --fail-on)"))

@@ -571,3 +571,15 @@ def test_duckdb_engine_option_gives_the_same_metrics_as_the_default(tmp_path):
     assert outs["duckdb"]["run"]["config"]["engine"] == "duckdb"
     assert outs["duckdb"]["metrics"] == outs["pandas"]["metrics"]
     assert outs["duckdb"]["verdict"]["headline_tier"] == outs["pandas"]["verdict"]["headline_tier"]
+
+
+def test_comparing_gates_refuse_no_history_and_say_when_they_cannot_trip(tmp_path):
+    """--fail-on go-lost with --no-history is a usage error (exit 2); with an empty history
+    the audit runs and says the gate cannot trip yet."""
+    args = ("audit", SAMPLE_EVENTS, "--catalog", SAMPLE_CATALOG, "--no-backtest", "--quiet",
+            "--fail-on", "go-lost")
+    refused = run(*args, "--out", tmp_path / "a", "--no-history")
+    assert refused.exit_code == 2 and "drop --no-history" in refused.output
+    first = run(*args, "--out", tmp_path / "b")
+    assert first.exit_code == 0
+    assert "cannot trip yet" in first.stderr

@@ -238,7 +238,9 @@ def _assumptions(r: AuditResult) -> Panel:
                  "users active after x first appeared (exposure inferred from activity, not "
                  "impressions); with many pairs tested some are false positives.")
     notes.append("'More users needed' assumes the item's strongest observed co-consumption rate "
-                 "holds as data grows: a planning estimate, not a promise.")
+                 "holds as data grows; the strongest of many observed pairs tends to overstate "
+                 "its rate, so read it as an optimistic lower bound for planning, not a "
+                 "promise.")
     if r.evidence is None:
         notes.append("The backtest was switched off: rules that need it are borderline at best.")
     # Text, not a markup string: notes carry file names and config sections such as
