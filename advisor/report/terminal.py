@@ -99,9 +99,10 @@ def _rule_cell(results) -> Text:
     parts = []
     for res in results:
         rule = res.rule
-        if rule.severity != "blocking":
+        if rule.severity != "blocking" and res.outcome in ("pass", "skipped"):
             continue
-        parts.append(f"[{OUTCOME_MARK[res.outcome]}] {rule.metric} {fmt(res.value)} "
+        note = "" if rule.severity == "blocking" else "note: "
+        parts.append(f"[{OUTCOME_MARK[res.outcome]}] {note}{rule.metric} {fmt(res.value)} "
                      f"(needs {rule.op} {fmt(rule.threshold)})")
     return Text("\n".join(parts) or "-")
 
