@@ -399,10 +399,11 @@ def backfill(logs, catalog, config_file, rules_file, user_col, item_col, time_co
                                   "the range")
             privacy = _privacy(user_ids, salt)
             path = history_path or default_history_path(out)
+            base = _make_config(config_file, rules_file, user_col, item_col, time_col,
+                                event_col, value_col, seed, backtest, None, engine, threads)
             for day in weeks:
                 week_out = out / "weeks" / day
-                cfg = _make_config(config_file, rules_file, user_col, item_col, time_col,
-                                   event_col, value_col, seed, backtest, day, engine, threads)
+                cfg = replace(base, as_of=day)
                 result, _, _ = _run_and_write(logs, catalog, cfg, week_out,
                                               history_path=path, no_history=no_history,
                                               quiet=quiet, editorial_rows=10, privacy=privacy)

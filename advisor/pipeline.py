@@ -24,7 +24,7 @@ from advisor.profile.bundle import Profile, build_profile, item_categories
 from advisor.rules.cold import ColdItems, ColdUsers, cold_items, cold_users
 from advisor.rules.engine import Decision, decide
 from advisor.rules.loader import load_rules
-from advisor.rules.metrics import profile_metrics
+from advisor.rules.metrics import profile_metrics, quality_metrics
 from advisor.rules.model import RuleSet
 from advisor.validate import validate
 from advisor.validate.model import Catalog, QualityReport, ValidatedLog
@@ -141,9 +141,7 @@ def audit(logs: str | Path, *, catalog: str | Path | None = None,
         files, columns, events = raw.files, raw.columns, None
     say("profiling")
     profile = build_profile(log, agg, config, events=events)
-    metrics = profile_metrics(profile)
-    metrics["quality.quarantined_share"] = (
-        log.quality.rows_quarantined / log.quality.rows_read if log.quality.rows_read else None)
+    metrics = {**profile_metrics(profile), **quality_metrics(log.quality)}
 
     evidence = None
     if config.backtest:

@@ -9,6 +9,7 @@ from __future__ import annotations
 import math
 
 from advisor.profile.bundle import Profile
+from advisor.validate.model import QualityReport
 
 #: Meaning of each metric family, for the documentation and ``advisor rules``.
 METRIC_DOCS = {
@@ -60,6 +61,19 @@ def _clean(v):
         return float(v)
     v = float(v)
     return None if math.isnan(v) else v
+
+
+def quality_metrics(q: QualityReport) -> dict[str, float | None]:
+    """Metrics from the data-quality report.
+
+    Examples
+    --------
+    >>> from advisor.validate.model import QualityReport
+    >>> quality_metrics(QualityReport(200, 150, 40, 10, (), "iso8601"))
+    {'quality.quarantined_share': 0.2}
+    """
+    share = q.rows_quarantined / q.rows_read if q.rows_read else None
+    return {"quality.quarantined_share": share}
 
 
 def profile_metrics(p: Profile) -> dict[str, float | None]:
