@@ -31,7 +31,7 @@ from advisor.config import LogColumns
 from advisor.errors import ConfigError, LogFormatError
 from advisor.load.columns import detect_log_columns
 from advisor.load.model import LINE_COL, LOG_FIELDS, SOURCE_COL, ColumnDetection, InputFile
-from advisor.load.readers import _arrow_frame, detect_format, list_input_files
+from advisor.load.readers import _arrow_frame, detect_format, list_input_files, open_parquet
 
 #: DuckDB column types read as text exactly as the in-memory reader writes them.
 _INT_TYPES = {"TINYINT", "SMALLINT", "INTEGER", "BIGINT", "UTINYINT", "USMALLINT", "UINTEGER",
@@ -183,20 +183,7 @@ def _parquet(con, index: int, path: Path, source: str, given: dict[str, str],
              in_folder: bool) -> tuple[SourceFile, ColumnDetection]:
     if _head(path, source, 2) == _GZIP_MAGIC:
         raise _unsupported(source, "gzip-compressed Parquet")
-    try:
-        pf = pq.ParquetFile(path)
-        header = list(pf.schema_arrow.names)
-        n = pf.metadata.num_rows
-    except (pa.ArrowException, OSError, ValueError) as exc:
-        raise LogFormatError(
-            f"{source}: not a valid Parquet file ({exc}); export it again, or check that the "
-            "suffix matches the content."
-        ) from None
-    if n == 0:
-        raise LogFormatError(
-            f"{source}: has columns ({', '.join(header)}) but no data rows; remove it or "
-            "export it again."
-        )
+    pf, header = open_parquet(path, source)
     det = detect_log_columns(header, given=given, source=source)
     ts_field = pf.schema_arrow.field(det.mapping["ts"])
     if pa.types.is_timestamp(ts_field.type) and ts_field.type.tz and ts_field.type.unit == "ns":
@@ -205,7 +192,7 @@ def _parquet(con, index: int, path: Path, source: str, given: dict[str, str],
     types = dict(con.execute(f"SELECT column_name, column_type FROM (DESCRIBE SELECT * FROM "
                              f"{scan})").fetchall())
     select = _select(index, scan, "file_row_number + 1", det.mapping, types, source)
-    info = _fingerprint(path, source, in_folder, "parquet", False, n)
+    info = _fingerprint(path, source, in_folder, "parquet", False, pf.metadata.num_rows)
     return SourceFile(index, path, source, "parquet", select, dict(det.mapping), info), det
 
 

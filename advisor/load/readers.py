@@ -387,9 +387,16 @@ def _arrow_frame(table: pa.Table, names: list[str], source: str, sep: str) -> pd
     return _strings(pd.DataFrame(out))
 
 
-def _read_parquet(data: bytes, source: str, sep: str) -> _Table:
+def open_parquet(target, source: str) -> tuple[pq.ParquetFile, list[str]]:
+    """Open a Parquet file (path or file object) for reading, with its column names.
+
+    Raises
+    ------
+    LogFormatError
+        If it is not valid Parquet or has no data rows (one line, naming ``source``).
+    """
     try:
-        pf = pq.ParquetFile(io.BytesIO(data))
+        pf = pq.ParquetFile(target)
         header = list(pf.schema_arrow.names)
         n = pf.metadata.num_rows
     except (pa.ArrowException, OSError, ValueError) as exc:
@@ -402,6 +409,12 @@ def _read_parquet(data: bytes, source: str, sep: str) -> _Table:
             f"{source}: has columns ({', '.join(header)}) but no data rows; remove it or "
             "export it again."
         )
+    return pf, header
+
+
+def _read_parquet(data: bytes, source: str, sep: str) -> _Table:
+    pf, header = open_parquet(io.BytesIO(data), source)
+    n = pf.metadata.num_rows
 
     def columns(names: list[str]) -> pd.DataFrame:
         try:
