@@ -85,6 +85,24 @@ def test_item_neighbours_keep_top_k_weights_summing_to_one():
     assert np.all(np.diag(w) == 0)
 
 
+@pytest.mark.parametrize("seed", range(3))
+def test_item_neighbours_are_each_rows_top_k_of_the_counting_formula(seed, monkeypatch):
+    """Each item's kept neighbours are the k largest positive entries of its similarity row
+    (ties to the lower item index), also when the rows are computed in many small blocks."""
+    import advisor.evidence.similarity as similarity
+
+    monkeypatch.setattr(similarity, "_BLOCK_PRODUCTS", 50)  # many blocks
+    x = _random_matrix(10 + seed)
+    k = 3
+    dense = np.vstack([s for _, s in similarity_blocks(x, alpha=0.5)]).astype(np.float64)
+    w = item_neighbours(x, neighbours=k, alpha=0.5).toarray()
+    for i in range(dense.shape[0]):
+        row = dense[i]
+        order = np.lexsort((np.arange(row.size), -row))
+        expected = sorted(j for j in order[:k] if row[j] > 0)
+        assert sorted(np.flatnonzero(w[i]).tolist()) == expected
+
+
 def test_item_knn_scores_sum_neighbour_weights_over_the_users_items():
     """A user's score for j is the sum of normalised sim(i, j) over the user's items i."""
     x = _random_matrix(5)

@@ -172,3 +172,60 @@ def test_bad_options_are_config_errors(option):
     kwargs = {"seed": 0, **option}
     with pytest.raises(ConfigError):
         gather_evidence(pairs, 1, 1, **kwargs)
+
+
+def test_sample_users_keeps_every_pair_of_the_chosen_users():
+    """A user sample keeps all of each chosen user's pairs, renumbers users 0..n-1 in their
+    original order, and is reproducible for a seed."""
+    from advisor.evidence.gather import sample_users
+
+    pairs, nu, _ = planted_log(3, taste=0.5, n_users=500)
+    kept, n, total = sample_users(pairs, 120, rng=np.random.default_rng(7))
+    again, _, _ = sample_users(pairs, 120, rng=np.random.default_rng(7))
+    assert (n, total) == (120, nu)
+    pd.testing.assert_frame_equal(kept, again)
+    assert sorted(kept["user_idx"].unique()) == list(range(120))
+    def signatures(frame):
+        """Each user's sorted (item, time) pairs, users in index order."""
+        return [tuple(sorted(zip(g["item_idx"], g["ts"])))
+                for _, g in frame.groupby("user_idx", sort=True)]
+
+    original, sampled = signatures(pairs), signatures(kept)
+    # Every kept user is one original user with all of their pairs, in the original order.
+    at = iter(original)
+    assert all(any(sig == o for o in at) for sig in sampled)
+    same, _, _ = sample_users(pairs, nu, rng=np.random.default_rng(7))
+    assert same is pairs  # at or under the cap: untouched
+
+
+def test_backtest_on_a_user_sample_says_so_and_projects_to_the_whole_log():
+    """Above the cap the backtest runs on a seeded user sample, says so (summary and note),
+    still finds the planted taste, and the learning curve projects to the whole log."""
+    pairs, nu, ni = planted_log(11, taste=0.85, n_users=4000)
+    ev = gather_evidence(pairs, nu, ni, seed=0, max_users=1500)
+    s = ev.split
+    assert s.users_sampled and s.population_users == nu
+    assert s.train_users <= 1500
+    assert any("seeded sample of 1,500 of the log's 4,000 users" in n for n in ev.notes)
+    assert _is_go(ev.metrics())
+    whole = round(s.train_users * nu / 1500)
+    assert whole in {p.train_users for p in ev.learning_curve.projections}
+    full = gather_evidence(pairs, nu, ni, seed=0)
+    assert not full.split.users_sampled and full.split.population_users == nu
+
+
+def test_learning_curve_on_a_large_catalogue_uses_a_stated_subset_of_test_users(monkeypatch):
+    """Above the cell bound the curve is measured on a seeded subset of the test users, the
+    report says so, and the full-size point is the subset's share of the main comparison."""
+    import advisor.evidence.gather as gather
+
+    monkeypatch.setattr(gather, "CURVE_CELLS", 1)
+    monkeypatch.setattr(gather, "MIN_CURVE_USERS", 200)
+    pairs, nu, ni = planted_log(5, taste=0.85)
+    ev = gather_evidence(pairs, nu, ni, seed=0)
+    assert ev.split.test_users > 200
+    assert any("seeded subset of 200 of the" in n for n in ev.notes)
+    assert len(ev.learning_curve.points) == 4
+    full = ev.learning_curve.points[-1]
+    best = ev.candidate(ev.best_candidate)
+    assert full.candidate_ndcg != best.ndcg  # a subset's mean, not the whole comparison's

@@ -94,3 +94,50 @@ def test_evaluate_scorer_scores_a_hand_worked_case():
     assert m.ndcg.tolist() == pytest.approx([1 / np.log2(3), 0.0])
     assert m.recall.tolist() == [1.0, 0.0]
     assert m.recommended.tolist() == [1, 1, 2, 0]
+
+
+def _random_log(seed: int, n_users: int = 300, n_items: int = 120, density: float = 0.05):
+    """Invented binary log with many equal popularity counts (ties)."""
+    rng = np.random.default_rng(seed)
+    x = (rng.random((n_users, n_items)) < density * rng.random(n_items)[None, :] * 2)
+    x[:5, :] = True  # users who have (almost) everything: fewer than k items left
+    x[5, :] = False
+    x[5, :n_items - 3] = True
+    return sp.csr_matrix(x.astype(np.float32))
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_every_ranking_path_gives_the_dense_lists(seed):
+    """The fixed-score and sparse ranking paths return exactly the lists top_k returns on
+    the dense scores, ties and users with fewer than k unseen items included."""
+    from advisor.evidence.candidates import fit_item_knn, fit_popularity
+    from advisor.evidence.metrics import _ranking, top_k_fixed, top_k_sparse
+
+    x = _random_log(seed)
+    hist = x[:60]
+    for cand in (fit_popularity(x), fit_item_knn(x, neighbours=5)):
+        dense = top_k(np.array(cand.score(hist), dtype=np.float64, copy=True), hist, 10)
+        if cand.fixed is not None:
+            fast = top_k_fixed(_ranking(cand.fixed), hist, 10)
+        else:
+            pop = cand.popularity
+            fast = top_k_sparse(cand.sparse(hist), pop, _ranking(pop), hist, 10)
+        np.testing.assert_array_equal(fast, dense)
+        assert (dense[:5] == -1).all() and (dense[5, 3:] == -1).all()
+
+
+def test_evaluate_candidate_matches_the_dense_evaluation():
+    """Per-user NDCG, recall and recommendation counts are the same on every path."""
+    from advisor.evidence.candidates import fit_item_knn, fit_popularity
+    from advisor.evidence.metrics import evaluate_candidate, evaluate_scorer
+
+    x = _random_log(9, n_users=400)
+    rng = np.random.default_rng(1)
+    held = sp.csr_matrix((rng.random(x.shape) < 0.02) & (x.toarray() == 0), dtype=np.float32)
+    users = np.flatnonzero(np.diff(held.indptr) > 0)
+    for cand in (fit_popularity(x), fit_item_knn(x)):
+        a = evaluate_candidate(cand, x, held, users, k=10)
+        b = evaluate_scorer(cand.score, x, held, users, k=10)
+        np.testing.assert_array_equal(a.ndcg, b.ndcg)
+        np.testing.assert_array_equal(a.recall, b.recall)
+        np.testing.assert_array_equal(a.recommended, b.recommended)

@@ -60,6 +60,15 @@ class Candidate:
     """True when scores depend on the user's own items."""
     score: Callable[[sp.csr_matrix], np.ndarray]
     """Training rows of a batch of users -> dense scores (batch x n_items)."""
+    fixed: np.ndarray | None = None
+    """For a candidate that gives every user the same scores: those scores (one per item),
+    so the evaluation can rank once instead of per user. ``score`` gives the same values."""
+    sparse: Callable[[sp.csr_matrix], sp.csr_matrix] | None = None
+    """For a candidate whose scores are non-negative sparse personal scores with popularity
+    tie-breaking (:func:`_with_popularity_ties`): the personal part, so the evaluation can
+    rank over the user's candidate items only. ``score`` gives the same ranking."""
+    popularity: np.ndarray | None = None
+    """Tie-breaking popularity of a ``sparse`` candidate (training users per item)."""
 
 
 def _item_counts(train: sp.csr_matrix) -> np.ndarray:
@@ -70,12 +79,15 @@ def _with_popularity_ties(scores: np.ndarray, popularity: np.ndarray) -> np.ndar
     """Break ties (and all-zero rows) by popularity, the fallback a deployed row would use.
 
     A bonus of at most one part in a million of each row's largest absolute score is added in
-    proportion to popularity, so it reorders only near-ties.
+    proportion to popularity, so it reorders only near-ties. A float64 ``scores`` is updated
+    in place (callers pass arrays of their own).
     """
-    top = np.abs(scores).max(axis=1, keepdims=True)
+    scores = np.array(scores, dtype=np.float64, copy=None)  # no copy when already float64
+    top = np.maximum(scores.max(axis=1, keepdims=True), -scores.min(axis=1, keepdims=True))
     eps = 1e-6 * np.where(top > 0, top, 1.0)
     pmax = popularity.max() if popularity.size and popularity.max() > 0 else 1.0
-    return scores + eps * (popularity / pmax)[None, :]
+    scores += eps * (popularity / pmax)[None, :]
+    return scores
 
 
 def fit_popularity(train: sp.csr_matrix) -> Candidate:
@@ -89,7 +101,7 @@ def fit_popularity(train: sp.csr_matrix) -> Candidate:
     """
     pop = _item_counts(train)
     return Candidate("popularity", "global popularity (training users per item)", False,
-                     lambda hist: np.broadcast_to(pop, (hist.shape[0], len(pop))))
+                     lambda hist: np.broadcast_to(pop, (hist.shape[0], len(pop))), fixed=pop)
 
 
 def fit_recent_popularity(train: sp.csr_matrix, item: np.ndarray, ts: np.ndarray,
@@ -110,7 +122,8 @@ def fit_recent_popularity(train: sp.csr_matrix, item: np.ndarray, ts: np.ndarray
     # below 2**26 users per item.
     key = recent * (pop.max() + 1.0) + pop
     return Candidate("recent_popularity", f"popularity over the last {days} days of training",
-                     False, lambda hist: np.broadcast_to(key, (hist.shape[0], len(key))))
+                     False, lambda hist: np.broadcast_to(key, (hist.shape[0], len(key))),
+                     fixed=key)
 
 
 def fit_category_popularity(train: sp.csr_matrix, item_category: np.ndarray) -> Candidate:
@@ -163,11 +176,15 @@ def fit_item_knn(train: sp.csr_matrix, *, neighbours: int = NEIGHBOURS,
     w = item_neighbours(train, neighbours=neighbours, alpha=alpha)
     pop = _item_counts(train)
 
+    def personal(hist: sp.csr_matrix) -> sp.csr_matrix:
+        return (hist @ w).tocsr()
+
     def score(hist: sp.csr_matrix) -> np.ndarray:
-        return _with_popularity_ties((hist @ w).toarray(), pop)
+        return _with_popularity_ties(personal(hist).toarray(), pop)
 
     return Candidate("itemknn", f"item-item CF, conditional probability (alpha={alpha}), "
-                     f"top-{neighbours} neighbours", True, score)
+                     f"top-{neighbours} neighbours", True, score, sparse=personal,
+                     popularity=pop)
 
 
 def ease_weights(gram: np.ndarray, l2: float) -> np.ndarray:

@@ -20,12 +20,13 @@ from advisor.evidence.candidates import (
 from advisor.evidence.compare import activity_bands as band_table
 from advisor.evidence.compare import bootstrap_mean_interval, paired_comparison
 from advisor.evidence.learning_curve import fit_learning_curve, measure_points
-from advisor.evidence.metrics import UserMetrics, evaluate_scorer, long_tail_items
+from advisor.evidence.metrics import UserMetrics, evaluate_candidate, long_tail_items
 from advisor.evidence.model import CandidateResult, Evidence
 from advisor.evidence.reliability import neighbour_reliability
 from advisor.evidence.split import Split, choose_split
 
-__all__ = ["MIN_TEST_USERS", "RELIABILITY_TARGET", "gather_evidence"]
+__all__ = ["CURVE_CELLS", "MIN_CURVE_USERS", "MIN_TEST_USERS", "RELIABILITY_TARGET",
+           "gather_evidence", "sample_users"]
 
 MIN_TEST_USERS = 10
 """Fewest evaluated users for which candidates are compared at all (common practice, no
@@ -35,8 +36,16 @@ RELIABILITY_TARGET = 0.8
 """Target neighbour reliability (0.8 is the conventional 'good' reliability in
 psychometrics; common practice, no published source for neighbour lists)."""
 
+CURVE_CELLS = 100_000_000
+"""Bound on (test users x items) per refit of the learning curve: above it the curve is
+measured on a seeded subset of the test users, at least ``MIN_CURVE_USERS`` (a cost bound:
+each point ranks the whole catalogue for every user it measures)."""
+
+MIN_CURVE_USERS = 1000
+"""Fewest test users the learning curve is measured on when it is subsampled."""
+
 # Independent random streams per step, so adding a step never shifts another's draws.
-_SPLIT, _BOOT, _CURVE, _HALVES = range(4)
+_SPLIT, _BOOT, _CURVE, _HALVES, _SAMPLE, _CURVE_USERS = range(6)
 
 
 def _rng(seed: int, step: int) -> np.random.Generator:
@@ -93,6 +102,33 @@ def _result(cand: Candidate, m: UserMetrics, tail: np.ndarray, *, n_items: int,
         long_tail_share=float(m.recommended[tail].sum() / slots) if slots else 0.0)
 
 
+def sample_users(pairs: pd.DataFrame, max_users: int | None, *,
+                 rng: np.random.Generator) -> tuple[pd.DataFrame, int, int]:
+    """A seeded sample of ``max_users`` users with every pair of theirs, users renumbered.
+
+    Returns ``(pairs, n_users_kept, n_users_in_log)``; the pairs are returned unchanged (and
+    ``n_users_kept == n_users_in_log``) when the log has at most ``max_users`` users. The
+    sample is simple random sampling of users without replacement, so the evaluated users
+    stay a random sample of the log's users; only the training set shrinks.
+
+    Examples
+    --------
+    >>> p = pd.DataFrame({"user_idx": [0, 0, 3, 5], "item_idx": [1, 2, 1, 0], "ts": [1, 2, 3, 4]})
+    >>> kept, n, total = sample_users(p, 2, rng=np.random.default_rng(0))
+    >>> n, total, sorted(kept["user_idx"].unique().tolist())
+    (2, 3, [0, 1])
+    """
+    users = np.unique(pairs["user_idx"].to_numpy(np.int64))
+    if max_users is None or users.size <= max_users:
+        return pairs, int(users.size), int(users.size)
+    chosen = np.sort(rng.choice(users, int(max_users), replace=False))
+    u = pairs["user_idx"].to_numpy(np.int64)
+    keep = np.isin(u, chosen, assume_unique=False)
+    out = pairs.loc[keep].copy()
+    out["user_idx"] = np.searchsorted(chosen, u[keep])
+    return out.reset_index(drop=True), int(chosen.size), int(users.size)
+
+
 def _empty(seed: int, k: int, confidence: float, lift_target: float, split, notes):
     return Evidence(seed=seed, k=k, confidence=confidence, split=split, candidates=(),
                     comparisons=(), best_candidate=None, latent_vs_itemknn=None, bands=(),
@@ -109,6 +145,7 @@ def gather_evidence(
     seed: int,
     k: int = 10,
     max_test_users: int = 5000,
+    max_users: int | None = None,
     confidence: float = 0.95,
     activity_bands: tuple[tuple[int, int | None], ...] = ((1, 2), (3, 5), (6, 20), (21, None)),
     learning_fractions: tuple[float, ...] = (0.125, 0.25, 0.5, 1.0),
@@ -132,6 +169,10 @@ def gather_evidence(
         List length of every @k metric.
     max_test_users : int, optional
         Cap on evaluated users (seeded sample above it).
+    max_users : int, optional
+        Cap on the users the whole backtest runs on (training and test); above it a seeded
+        sample of users is drawn (:func:`sample_users`) and the learning curve projects to
+        the log's full user count. None: every user.
     confidence : float, optional
         Level of every interval.
     activity_bands : tuple of (low, high), optional
@@ -177,12 +218,23 @@ def gather_evidence(
         return _empty(seed, k, confidence, lift_target, None,
                       ["the log has no interactions to backtest"])
     step("split")
+    pairs, n_kept, n_population = sample_users(pairs, max_users, rng=_rng(seed, _SAMPLE))
+    sampled_users = n_kept < n_population
+    if sampled_users:
+        n_users = n_kept
     split: Split = choose_split(
         pairs["user_idx"].to_numpy(np.int64), pairs["item_idx"].to_numpy(np.int64),
         pairs["ts"].to_numpy(np.int64), n_users, n_items, rng=_rng(seed, _SPLIT),
-        max_test_users=max_test_users)
+        max_test_users=max_test_users,
+        population_users=n_population if sampled_users else None)
     s = split.summary
     notes = []
+    if sampled_users:
+        notes.append(
+            f"backtest on a seeded sample of {n_kept:,} of the log's {n_population:,} users "
+            "(a cost bound): models trained on fewer users usually score lower, so the "
+            "lifts understate what the whole log supports; the learning curve projects to "
+            "the full user count")
     if not s.is_temporal:
         notes.append("per-user hold-out: other users' later behaviour is in training, so "
                      "accuracy is optimistic (Ji et al. 2023)")
@@ -213,7 +265,7 @@ def gather_evidence(
     for name, fit in fits:
         step(f"fit {name}")
         cand = fit()
-        m = evaluate_scorer(cand.score, train, test, users, k=k)
+        m = evaluate_candidate(cand, train, test, users, k=k)
         per_user[name] = m
         results[name] = _result(cand, m, tail, n_items=n_items, confidence=confidence,
                                 rng=boot)
@@ -236,16 +288,26 @@ def gather_evidence(
 
     step("learning curve")
     fit_best = fit_item_knn if best == "itemknn" else fit_latent
+    at = np.arange(len(users))
+    limit = max(MIN_CURVE_USERS, CURVE_CELLS // max(n_items, 1))
+    if len(users) > limit:
+        at = np.sort(_rng(seed, _CURVE_USERS).choice(len(users), limit, replace=False))
+        notes.append(f"learning curve measured on a seeded subset of {limit:,} of the "
+                     f"{len(users):,} test users (a cost bound on a {n_items:,}-item "
+                     "catalogue)")
+    curve_users = users[at]
 
     def evaluate(sub: sp.csr_matrix) -> tuple[np.ndarray, np.ndarray]:
-        cand = evaluate_scorer(fit_best(sub).score, train, test, users, k=k).ndcg
-        pop = evaluate_scorer(fit_popularity(sub).score, train, test, users, k=k).ndcg
+        cand = evaluate_candidate(fit_best(sub), train, test, curve_users, k=k).ndcg
+        pop = evaluate_candidate(fit_popularity(sub), train, test, curve_users, k=k).ndcg
         return cand, pop
 
     points = measure_points(learning_fractions, train, evaluate, rng=_rng(seed, _CURVE),
-                            full=(per_user[best].ndcg, base))
+                            full=(per_user[best].ndcg[at], base[at]))
+    full_train = (int(round(s.train_users * n_population / n_kept)) if sampled_users
+                  else None)
     curve = fit_learning_curve(points, candidate=best, lift_target=lift_target,
-                               confidence=confidence, rng=boot)
+                               confidence=confidence, rng=boot, population_train_users=full_train)
 
     step("neighbour reliability")
     reliability = neighbour_reliability(train, rng=_rng(seed, _HALVES),

@@ -59,7 +59,8 @@ def subsample_users(train: sp.csr_matrix, fractions: tuple[float, ...], *,
 def fit_learning_curve(points: list[tuple[float, int, np.ndarray, np.ndarray]], *,
                        candidate: str, lift_target: float, confidence: float = 0.95,
                        rng: np.random.Generator,
-                       resamples: int = BOOTSTRAP_RESAMPLES) -> LearningCurve:
+                       resamples: int = BOOTSTRAP_RESAMPLES,
+                       population_train_users: int | None = None) -> LearningCurve:
     """Fit lift against log2(training users) and estimate the users a lift target needs.
 
     Parameters
@@ -74,6 +75,10 @@ def fit_learning_curve(points: list[tuple[float, int, np.ndarray, np.ndarray]], 
         Level of every interval.
     rng : numpy.random.Generator
         Seeded generator for the per-point bootstrap intervals.
+    population_train_users : int, optional
+        When the points come from a seeded sample of the log's users: the training users the
+        whole log would give. The projections then include that size, and ``users_needed``
+        counts from it rather than from the sample.
 
     Returns
     -------
@@ -146,9 +151,10 @@ def fit_learning_curve(points: list[tuple[float, int, np.ndarray, np.ndarray]], 
         s_low, s_high = (float(v) for v in res.conf_int(alpha)[1])
     climbing = s_low > 0
     now = full.train_users
+    whole = population_train_users if (population_train_users or 0) > now else None
     projections = []
     if res is not None:
-        grid = [now * m for m in (1, 2, 4, 8)]
+        grid = sorted({now * m for m in (1, 2, 4, 8)} | ({whole} if whole else set()))
         frame = res.get_prediction(
             sm.add_constant(np.log2(np.array(grid, float)), has_constant="add")
         ).summary_frame(alpha=alpha)
@@ -170,6 +176,14 @@ def fit_learning_curve(points: list[tuple[float, int, np.ndarray, np.ndarray]], 
             if n_target > MAX_EXTRAPOLATION * now:
                 reason = (f"the fit reaches the target only beyond {MAX_EXTRAPOLATION:g}x "
                           "today's users, too far to extrapolate")
+            elif whole is not None:
+                status = "estimated"
+                needed = max(0, int(math.ceil(n_target - whole)))
+                reason = (f"extrapolated from a sample of {now:,} training users to the log's "
+                          f"{whole:,}: " + (f"about {needed:,} more training users for the "
+                                            "target lift" if needed else
+                                            "the fitted curve reaches the target at the log's "
+                                            "full size (a projection, not a measurement)"))
             else:
                 status = "estimated"
                 needed = max(0, int(math.ceil(n_target - now)))

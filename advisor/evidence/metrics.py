@@ -14,16 +14,22 @@ import scipy.sparse as sp
 
 __all__ = [
     "UserMetrics",
+    "evaluate_candidate",
     "evaluate_scorer",
     "long_tail_items",
     "ndcg_at_k",
     "ndcg_from_hits",
     "recall_from_hits",
     "top_k",
+    "top_k_fixed",
+    "top_k_sparse",
 ]
 
 _BATCH_CELLS = 4_000_000
 """Score-matrix cells per batch (users x items): bounds memory to ~32 MB of float64."""
+
+_SPARSE_BATCH = 1000
+"""Users per batch on the ranking paths that never build a dense score row."""
 
 
 def _discounts(k: int) -> np.ndarray:
@@ -148,24 +154,123 @@ def top_k(scores: np.ndarray, exclude: sp.csr_matrix, k: int) -> np.ndarray:
     -------
     ndarray of int, shape (n_users, k)
         Item indices; a slot whose score is -inf is marked -1 (the user has fewer than k
-        unseen items).
+        unseen items). Equal scores go to the lower item index, so lists are the same on
+        every run and for every ranking path of :func:`evaluate_candidate`.
 
     Examples
     --------
     >>> top_k(np.array([[3.0, 1.0, 2.0]]), sp.csr_matrix([[1, 0, 0]]), 2)
     array([[2, 1]])
+    >>> top_k(np.array([[1.0, 2.0, 2.0, 2.0]]), sp.csr_matrix((1, 4)), 2)
+    array([[1, 2]])
     """
     n_items = scores.shape[1]
     k = min(k, n_items)
     rows = np.repeat(np.arange(exclude.shape[0]), np.diff(exclude.indptr))
     scores[rows, exclude.indices] = -np.inf
-    part = np.argpartition(-scores, k - 1, axis=1)[:, :k] if k < n_items else (
-        np.tile(np.arange(n_items), (scores.shape[0], 1)))
-    vals = np.take_along_axis(scores, part, axis=1)
-    order = np.argsort(-vals, axis=1, kind="stable")
+    if k < n_items:
+        part = np.argpartition(-scores, k - 1, axis=1)[:, :k]
+        vals = np.take_along_axis(scores, part, axis=1)
+        # argpartition splits ties at the k-th value arbitrarily; redo those rows so that
+        # the lower item indices win.
+        kth = vals.min(axis=1)
+        tied = np.flatnonzero(np.isfinite(kth) & ((scores == kth[:, None]).sum(axis=1)
+                                                  > (vals == kth[:, None]).sum(axis=1)))
+        for r in tied:
+            above = np.flatnonzero(scores[r] > kth[r])
+            at = np.flatnonzero(scores[r] == kth[r])[:k - above.size]
+            part[r] = np.concatenate([above, at])
+        if tied.size:
+            vals = np.take_along_axis(scores, part, axis=1)
+    else:
+        part = np.tile(np.arange(n_items), (scores.shape[0], 1))
+        vals = scores.copy()
+    order = np.lexsort((part, -vals), axis=-1)
     ranked = np.take_along_axis(part, order, axis=1)
     ranked[~np.isfinite(np.take_along_axis(vals, order, axis=1))] = -1
     return ranked
+
+
+def _ranking(values: np.ndarray) -> np.ndarray:
+    """Every item, best first, equal values by lower index (the :func:`top_k` order)."""
+    return np.lexsort((np.arange(values.size), -np.asarray(values, dtype=np.float64)))
+
+
+def top_k_fixed(order: np.ndarray, exclude: sp.csr_matrix, k: int) -> np.ndarray:
+    """:func:`top_k` for scores that are the same for every user, given their ranking.
+
+    Each user's list is the first ``k`` items of ``order`` that the user does not have; only
+    the first ``k + (longest history in the batch)`` items of the ranking are looked at.
+
+    Examples
+    --------
+    >>> top_k_fixed(np.array([2, 0, 1]), sp.csr_matrix([[1, 0, 1], [0, 0, 0]]), 2)
+    array([[ 1, -1],
+           [ 2,  0]])
+    """
+    n_users = exclude.shape[0]
+    k = min(k, order.size)
+    longest = int(np.diff(exclude.indptr).max(initial=0))
+    cand = order[:min(order.size, k + longest)]
+    ok = ~(exclude[:, cand].toarray() > 0)
+    rank = np.cumsum(ok, axis=1)
+    take = ok & (rank <= k)
+    out = np.full((n_users, k), -1, dtype=np.int64)
+    r, c = np.nonzero(take)
+    out[r, rank[r, c] - 1] = cand[c]
+    return out
+
+
+def top_k_sparse(personal: sp.csr_matrix, popularity: np.ndarray, order: np.ndarray,
+                 exclude: sp.csr_matrix, k: int) -> np.ndarray:
+    """:func:`top_k` of non-negative sparse scores with popularity tie-breaking.
+
+    The dense score of item j for user u is ``s[u, j] + eps_u * pop[j] / max(pop)`` with
+    ``eps_u = 1e-6 * max_j s[u, j]`` (1e-6 when the row is empty), as the candidates'
+    ``_with_popularity_ties`` computes it. An item with ``s = 0`` outside the first
+    ``k + h_u`` items of the popularity ranking ``order`` scores no more than each of those
+    (at most ``h_u`` of which the user has), so ranking only the user's non-zero items and
+    that prefix gives the same list; cost grows with the non-zeros, not the catalogue.
+
+    Examples
+    --------
+    >>> s = sp.csr_matrix(np.array([[0.0, 0.0, 0.5, 0.0]]))
+    >>> pop = np.array([5.0, 9.0, 1.0, 7.0])
+    >>> top_k_sparse(s, pop, np.array([1, 3, 0, 2]), sp.csr_matrix((1, 4)), 3)
+    array([[2, 1, 3]])
+    """
+    n_users, n_items = personal.shape
+    k = min(k, n_items)
+    s = personal.tocsr()
+    s.sum_duplicates()
+    longest = int(np.diff(exclude.indptr).max(initial=0))
+    prefix = order[:min(n_items, k + longest)]
+    top = np.zeros(n_users)
+    nonempty = np.diff(s.indptr) > 0
+    if s.nnz:
+        top[nonempty] = np.maximum.reduceat(s.data, s.indptr[:-1][nonempty])
+    eps = 1e-6 * np.where(top > 0, top, 1.0)
+    pmax = popularity.max() if popularity.size and popularity.max() > 0 else 1.0
+    rows = np.concatenate([np.repeat(np.arange(n_users), np.diff(s.indptr)),
+                           np.repeat(np.arange(n_users), prefix.size)])
+    cols = np.concatenate([s.indices.astype(np.int64), np.tile(prefix, n_users)])
+    vals = np.concatenate([s.data.astype(np.float64), np.zeros(n_users * prefix.size)])
+    # One entry per (user, item): a popular item the user also has a score for keeps it.
+    key, where = np.unique(rows * n_items + cols, return_inverse=True)
+    vals = np.bincount(where, weights=vals, minlength=key.size)
+    rows, cols = key // n_items, key % n_items
+    score = vals + eps[rows] * (popularity[cols] / pmax)
+    ex = exclude.tocsr()
+    ex_key = np.repeat(np.arange(n_users), np.diff(ex.indptr)) * n_items + ex.indices
+    keep = ~np.isin(key, ex_key)
+    rows, cols, score = rows[keep], cols[keep], score[keep]
+    order_ = np.lexsort((cols, -score, rows))
+    rows, cols = rows[order_], cols[order_]
+    rank = np.arange(rows.size) - np.searchsorted(rows, rows, side="left")
+    take = rank < k
+    out = np.full((n_users, k), -1, dtype=np.int64)
+    out[rows[take], rank[take]] = cols[take]
+    return out
 
 
 def long_tail_items(counts: np.ndarray, *, head_share: float = 0.2) -> np.ndarray:
@@ -209,7 +314,8 @@ def evaluate_scorer(score: Callable[[sp.csr_matrix], np.ndarray], train: sp.csr_
     Parameters
     ----------
     score : callable
-        Maps the training rows of a batch of users (csr, batch x n_items) to dense scores.
+        Maps the training rows of a batch of users (csr, batch x n_items) to dense scores
+        (a writeable float64 array it returns is used as scratch space and overwritten).
     train, test : csr_matrix, shape (n_users, n_items)
         Training and held-out interactions (binary).
     users : ndarray of int
@@ -223,21 +329,57 @@ def evaluate_scorer(score: Callable[[sp.csr_matrix], np.ndarray], train: sp.csr_
         Per-user NDCG@k and recall@k, and recommendation counts per item.
     """
     n_items = train.shape[1]
-    k_eff = min(k, n_items)
     batch = max(1, _BATCH_CELLS // max(n_items, 1))
+
+    def rank(hist: sp.csr_matrix) -> np.ndarray:
+        # A writeable float64 array of the scorer's own is used in place; anything else (a
+        # read-only broadcast row, another dtype) is copied once.
+        scores = np.require(score(hist), dtype=np.float64, requirements=["W", "C"])
+        return top_k(scores, hist, min(k, n_items))
+
+    return _evaluate(rank, train, test, users, batch=batch)
+
+
+def evaluate_candidate(cand, train: sp.csr_matrix, test: sp.csr_matrix, users: np.ndarray, *,
+                       k: int) -> UserMetrics:
+    """:func:`evaluate_scorer` for a fitted candidate, by its cheapest exact ranking path.
+
+    A candidate with the same scores for everyone (``cand.fixed``) is ranked once
+    (:func:`top_k_fixed`); one with sparse personal scores and popularity tie-breaking
+    (``cand.sparse``) is ranked over each user's non-zero items and a popularity prefix
+    (:func:`top_k_sparse`); any other through its dense scores. All paths give the lists
+    :func:`top_k` gives on the dense scores (equal scores to the lower item index).
+    """
+    if cand.fixed is not None:
+        order = _ranking(cand.fixed)
+        return _evaluate(lambda hist: top_k_fixed(order, hist, k), train, test, users,
+                         batch=_SPARSE_BATCH)
+    if cand.sparse is not None:
+        pop = np.asarray(cand.popularity, dtype=np.float64)
+        order = _ranking(pop)
+        return _evaluate(lambda hist: top_k_sparse(cand.sparse(hist), pop, order, hist, k),
+                         train, test, users, batch=_SPARSE_BATCH)
+    return evaluate_scorer(cand.score, train, test, users, k=k)
+
+
+def _evaluate(rank: Callable[[sp.csr_matrix], np.ndarray], train: sp.csr_matrix,
+              test: sp.csr_matrix, users: np.ndarray, *, batch: int) -> UserMetrics:
+    """Per-user metrics of the lists ``rank`` gives for batches of users' training rows."""
+    n_items = train.shape[1]
     ndcg = np.empty(len(users))
     recall = np.empty(len(users))
     recommended = np.zeros(n_items, dtype=np.int64)
     for start in range(0, len(users), batch):
         u = users[start:start + batch]
         hist = train[u]
-        scores = np.array(score(hist), dtype=np.float64, copy=True)
-        ranked = top_k(scores, hist, k_eff)
+        ranked = rank(hist)
         held = test[u]
         valid = ranked >= 0
         safe = np.where(valid, ranked, 0)
-        hits = (np.take_along_axis(held.toarray(), safe, axis=1) > 0) & valid
         n_rel = np.diff(held.indptr)
+        row = np.arange(len(u), dtype=np.int64)
+        held_key = np.repeat(row, n_rel) * n_items + held.indices
+        hits = np.isin(row[:, None] * n_items + safe, held_key) & valid
         ndcg[start:start + len(u)] = ndcg_from_hits(hits, n_rel)
         recall[start:start + len(u)] = recall_from_hits(hits, n_rel)
         recommended += np.bincount(ranked[valid], minlength=n_items)

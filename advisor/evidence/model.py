@@ -83,6 +83,12 @@ class SplitSummary:
     """Cap on evaluated users."""
     sampled: bool
     """True when the evaluated users are a sample of the eligible ones."""
+    population_users: int
+    """Users with counted interactions handed to the backtest (the log's users)."""
+    users_sampled: bool
+    """True when the backtest ran on a seeded sample of ``population_users`` users (a cost
+    bound on large logs): every model then trains on fewer users than the log has, which
+    usually understates the lift the whole log supports."""
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-safe dictionary of the fields."""

@@ -11,7 +11,8 @@ from collections.abc import Iterator
 import numpy as np
 import scipy.sparse as sp
 
-__all__ = ["ALPHA", "NEIGHBOURS", "item_neighbours", "similarity_blocks", "top_neighbours"]
+__all__ = ["ALPHA", "NEIGHBOURS", "item_neighbours", "similarity_blocks", "top_neighbours",
+           "top_neighbours_sparse"]
 
 ALPHA = 0.5
 """Exponent on the neighbour's frequency: 0 gives P(j|i), which favours popular neighbours;
@@ -22,6 +23,24 @@ NEIGHBOURS = 20
 
 _BLOCK_CELLS = 4_000_000
 """Similarity cells per block (items in block x all items)."""
+
+
+_BLOCK_PRODUCTS = 8_000_000
+"""Bound on the user-item products one sparse block of :func:`item_neighbours` may cost."""
+
+
+def _factors(train: sp.csr_matrix, alpha: float) -> tuple[sp.csr_matrix, sp.csr_matrix]:
+    """``left`` (items x users) and ``right`` (users x items) with ``left @ right`` the
+    similarity matrix: both normalisations folded in once, so a block of rows is one sparse
+    product whose cost grows with the sum over users of (items per user)^2, far below the
+    dense ``n_users * n_items^2`` on sparse logs."""
+    freq = np.asarray(train.sum(axis=0), dtype=np.float64).ravel()
+    with np.errstate(divide="ignore"):
+        row_norm = np.where(freq > 0, 1.0 / freq, 0.0)
+        col_norm = np.where(freq > 0, freq ** -alpha, 0.0)
+    right = (train @ sp.diags(col_norm.astype(np.float32))).tocsr()
+    left = (sp.diags(row_norm.astype(np.float32)) @ train.T).tocsr()
+    return left, right
 
 
 def similarity_blocks(train: sp.csr_matrix, *, alpha: float = ALPHA,
@@ -64,15 +83,7 @@ def similarity_blocks(train: sp.csr_matrix, *, alpha: float = ALPHA,
     [0.0, 0.667, 0.333]
     """
     n_items = train.shape[1]
-    freq = np.asarray(train.sum(axis=0), dtype=np.float64).ravel()
-    with np.errstate(divide="ignore"):
-        row_norm = np.where(freq > 0, 1.0 / freq, 0.0)
-        col_norm = np.where(freq > 0, freq ** -alpha, 0.0)
-    # Fold both normalisations into the factors once, so each block is a single sparse
-    # product; its cost grows with sum over users of (items per user)^2, far below the dense
-    # n_users * n_items^2 on sparse logs.
-    right = (train @ sp.diags(col_norm.astype(np.float32))).tocsr()
-    left = (sp.diags(row_norm.astype(np.float32)) @ train.T).tocsr()
+    left, right = _factors(train, alpha)
     block = max(1, _BLOCK_CELLS // max(n_items, 1))
     order = np.arange(n_items) if rows is None else np.asarray(rows, dtype=np.int64)
     for start in range(0, order.size, block):
@@ -99,6 +110,36 @@ def top_neighbours(sim: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
         np.tile(np.arange(n), (sim.shape[0], 1)))
     val = np.take_along_axis(sim, idx, axis=1)
     return idx, np.where(val > 0, val, 0.0)
+
+
+def top_neighbours_sparse(sim: sp.csr_matrix, k: int, *, first: int = 0
+                          ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The k largest positive entries per row of a sparse block of similarity rows.
+
+    Row ``r`` of ``sim`` is item ``first + r``; its own column (the diagonal) is skipped.
+    Ties go to the lower column index, so the lists are the same on every run.
+
+    Returns
+    -------
+    rows, cols, vals : ndarray
+        Item, neighbour and similarity of every kept entry.
+
+    Examples
+    --------
+    >>> m = sp.csr_matrix(np.array([[0.9, 0.5, 0.5, 0.2]]))
+    >>> r, c, v = top_neighbours_sparse(m, 2)
+    >>> c.tolist(), v.tolist()
+    ([1, 2], [0.5, 0.5])
+    """
+    sim = sim.tocoo()
+    rows = sim.row.astype(np.int64) + first
+    keep = (sim.data > 0) & (sim.col != rows)
+    rows, cols, vals = rows[keep], sim.col.astype(np.int64)[keep], sim.data[keep]
+    order = np.lexsort((cols, -vals, rows))
+    rows, cols, vals = rows[order], cols[order], vals[order]
+    starts = np.searchsorted(rows, rows, side="left")
+    top = np.arange(rows.size) - starts < k
+    return rows[top], cols[top], vals[top]
 
 
 def item_neighbours(train: sp.csr_matrix, *, neighbours: int = NEIGHBOURS,
@@ -133,14 +174,20 @@ def item_neighbours(train: sp.csr_matrix, *, neighbours: int = NEIGHBOURS,
     [0.0, 1.0, 0.0]
     """
     n_items = train.shape[1]
+    left, right = _factors(train, alpha)
+    # Blocks of consecutive items whose products stay under the bound: an item's row costs
+    # at most the summed history lengths of its users.
+    history = np.diff(train.indptr).astype(np.float64)
+    cost = np.cumsum(np.asarray(train.T @ history).ravel())
+    edges = np.unique(np.concatenate([
+        [0], np.searchsorted(cost, np.arange(_BLOCK_PRODUCTS, cost[-1] if cost.size else 0,
+                                             _BLOCK_PRODUCTS)), [n_items]]))
     rows, cols, vals = [], [], []
-    for start, sim in similarity_blocks(train, alpha=alpha):
-        idx, val = top_neighbours(sim, neighbours)
-        r = np.repeat(np.arange(start, start + sim.shape[0]), idx.shape[1])
-        keep = val.ravel() > 0
-        rows.append(r[keep])
-        cols.append(idx.ravel()[keep])
-        vals.append(val.ravel()[keep].astype(np.float64))
+    for lo, hi in zip(edges[:-1], edges[1:]):
+        r, c, v = top_neighbours_sparse((left[lo:hi] @ right).tocsr(), neighbours, first=lo)
+        rows.append(r)
+        cols.append(c)
+        vals.append(v.astype(np.float64))
     w = sp.csr_matrix((np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))),
                       shape=(n_items, n_items))
     sums = np.asarray(w.sum(axis=1)).ravel()

@@ -105,7 +105,8 @@ def _per_user_holdout(ts: np.ndarray, user: np.ndarray, n_users: int, test_share
 def choose_split(user: np.ndarray, item: np.ndarray, ts: np.ndarray, n_users: int,
                  n_items: int, *, rng: np.random.Generator, max_test_users: int,
                  min_returning_users: int = MIN_RETURNING_USERS,
-                 test_share: float = TEST_SHARE) -> Split:
+                 test_share: float = TEST_SHARE,
+                 population_users: int | None = None) -> Split:
     """Split distinct (user, item) pairs into training and test data.
 
     Parameters
@@ -122,6 +123,9 @@ def choose_split(user: np.ndarray, item: np.ndarray, ts: np.ndarray, n_users: in
         Returning users needed for the global time split.
     test_share : float, optional
         Share of interactions after the cutoff / of each user's items held out.
+    population_users : int, optional
+        When the pairs are those of a seeded sample of the log's users, how many users the
+        log has (reported in the summary); None: the pairs are every user's.
 
     Returns
     -------
@@ -187,6 +191,9 @@ def choose_split(user: np.ndarray, item: np.ndarray, ts: np.ndarray, n_users: in
         min_returning_users=min_returning_users, test_share=test_share,
         train_pairs=int(train.nnz), test_pairs=int(test.nnz), train_users=int(has_train.sum()),
         eligible_test_users=len(eligible), test_users=len(users),
-        max_test_users=max_test_users, sampled=sampled)
+        max_test_users=max_test_users, sampled=sampled,
+        population_users=int(population_users if population_users is not None
+                             else np.unique(user).size),
+        users_sampled=population_users is not None)
     return Split(train=train, test=test, train_item=item[is_train], train_ts=ts[is_train],
                  users=users, summary=summary)

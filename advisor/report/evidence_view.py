@@ -36,7 +36,11 @@ def evidence_tables(ev: Evidence) -> list:
              else "per-user hold-out of each user's latest items (leakier: no global timeline)")
     head.append(f"{proto}; {s.test_users:,} test users"
                 + (f" sampled from {s.eligible_test_users:,}" if s.sampled else "")
-                + f", {s.train_pairs:,} training pairs; ranked over the full catalogue; "
+                + f", {s.train_pairs:,} training pairs"
+                + (f" from a seeded sample of {s.train_users:,} training users of the log's "
+                   f"{s.population_users:,} users (lifts likely understated)"
+                   if s.users_sampled else "")
+                + "; ranked over the full catalogue; "
                   f"k = {ev.k}; {ev.confidence:.0%} bootstrap intervals; seed {ev.seed}. "
                 + s.reason)
     out.append(head)

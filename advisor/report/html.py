@@ -382,7 +382,11 @@ def _evidence(r: AuditResult, forecast: Any) -> _Html:
              "(leakier: there is no global timeline)")
     lede = (f"We replayed the past: {proto}. {s.test_users:,} test users"
             + (f" (a seeded sample of {s.eligible_test_users:,})" if s.sampled else "")
-            + f", {s.train_pairs:,} training pairs, every list ranked over the whole catalogue. "
+            + f", {s.train_pairs:,} training pairs"
+            + (f" (the backtest ran on a seeded sample of the log's {s.population_users:,} "
+               "users to bound its cost; with fewer users to learn from, the models usually "
+               "score lower, so the lifts are likely understated)" if s.users_sampled else "")
+            + ", every list ranked over the whole catalogue. "
             f"NDCG@{ev.k} is higher when the items a user really took next sit nearer the top "
             f"of a {ev.k}-item row. {s.reason}")
     rows = []
