@@ -340,3 +340,29 @@ def test_significant_pairs_matches_the_wilson_rule_for_a_single_test():
     for both, n_y, base in [(12, 40, 0.15), (9, 40, 0.15), (5, 10, 0.2), (30, 300, 0.08)]:
         low, _ = proportion_confint(both, n_y, alpha=0.05, method="wilson")
         assert significant_pairs([both], [n_y], [base], tests=1)[0] == (low > base)
+
+
+@pytest.mark.parametrize("fdr", [False, True])
+def test_block_by_block_scan_gives_the_single_product_result(fdr, monkeypatch):
+    """Computing X^T X a few items at a time (and, under false-discovery control, scanning
+    twice when the kept pairs overflow) gives exactly the one-product profile."""
+    import advisor.profile.cooccurrence as cooc
+
+    rng = np.random.default_rng(4)
+    taste = rng.integers(0, 4, size=400)
+    dense = (rng.random((400, 60)) < np.where(np.arange(60)[None, :] % 4 == taste[:, None],
+                                              0.3, 0.04)).astype(np.int8)
+    x = sp.csr_matrix(dense)
+    kw = dict(false_discovery_control=fdr, exposed_users=np.full(60, 400.0), top_n=15)
+    whole = cooccurrence_profile(x, **kw)
+    monkeypatch.setattr(cooc, "_BLOCK_PRODUCTS", 200)
+    monkeypatch.setattr(cooc, "_KEPT_PAIRS", 40)
+    blocked = cooccurrence_profile(x, **kw)
+    assert len(cooc._BlockScan(x.astype(np.int32), whole.support, np.zeros(60),
+                               confidence=0.95, min_pair_users=2).edges) > 10
+    np.testing.assert_array_equal(blocked.significant_neighbours, whole.significant_neighbours)
+    np.testing.assert_array_equal(blocked.best_p, whole.best_p)
+    np.testing.assert_array_equal(blocked.best_base, whole.best_base)
+    assert blocked.top_pairs == whole.top_pairs and len(whole.top_pairs) == 15
+    assert blocked.to_dict() == whole.to_dict()
+    assert whole.pairs_significant > 0

@@ -25,7 +25,8 @@ class Aggregates:
     n_seen_items: int
     """Items with at least one counted interaction (numbers ``0..n_seen_items-1``)."""
     pairs: pd.DataFrame
-    """One row per distinct (user, item) pair with a counted interaction. Columns:
+    """One row per distinct (user, item) pair with a counted interaction, sorted by
+    ``user_idx`` then ``item_idx`` (both engines deliver that order). Columns:
     ``user_idx`` (int32), ``item_idx`` (int32), ``first_ts`` and ``last_ts`` (int64 epoch
     seconds), ``events`` (int32 counted events), ``weight`` (float64 summed weights)."""
     user_items: np.ndarray
@@ -77,25 +78,35 @@ class Aggregates:
         exclude_implausible : bool
             Leave the rows of implausible accounts empty.
         """
-        pairs = self.pairs
+        u = self.pairs["user_idx"].to_numpy()
+        i = self.pairs["item_idx"].to_numpy()
+        keep = None
         if exclude_implausible and self.implausible.any():
-            pairs = pairs[~self.implausible[pairs["user_idx"].to_numpy()]]
-        if cap is not None:
-            pairs = _most_recent(pairs, cap)
-        data = np.ones(len(pairs), dtype=np.float32)
-        return sp.csr_matrix(
-            (data, (pairs["user_idx"].to_numpy(), pairs["item_idx"].to_numpy())),
-            shape=(self.n_users, self.n_items),
-        )
+            keep = ~self.implausible[u]
+        if cap is not None and self.user_items.size and self.user_items.max() > cap:
+            # Only users with more than ``cap`` items lose any; rank just their pairs.
+            heavy = np.flatnonzero((self.user_items > cap)[u])
+            drop = heavy[_beyond_cap(u[heavy], i[heavy],
+                                     self.pairs["last_ts"].to_numpy()[heavy], cap)]
+            keep = np.ones(u.size, dtype=bool) if keep is None else keep
+            keep[drop] = False
+        if keep is not None:
+            u, i = u[keep], i[keep]
+        if u.size and not (np.all(np.diff(u) >= 0)):
+            order = np.lexsort((i, u))
+            u, i = u[order], i[order]
+        indptr = np.zeros(self.n_users + 1, dtype=np.int64)
+        np.cumsum(np.bincount(u, minlength=self.n_users), out=indptr[1:])
+        return sp.csr_matrix((np.ones(u.size, dtype=np.float32), i.astype(np.int32), indptr),
+                             shape=(self.n_users, self.n_items))
 
 
-def _most_recent(pairs: pd.DataFrame, cap: int) -> pd.DataFrame:
-    """Each user's ``cap`` most recent pairs (ties broken by item number, so it is stable)."""
-    order = np.lexsort(
-        (pairs["item_idx"].to_numpy(), -pairs["last_ts"].to_numpy(), pairs["user_idx"].to_numpy())
-    )
-    p = pairs.iloc[order]
-    users = p["user_idx"].to_numpy()
+def _beyond_cap(user: np.ndarray, item: np.ndarray, last_ts: np.ndarray,
+                cap: int) -> np.ndarray:
+    """Positions of the pairs beyond each user's ``cap`` most recent (latest interaction
+    first, ties by item number, so it is stable)."""
+    order = np.lexsort((item, -last_ts, user))
+    users = user[order]
     starts = np.r_[0, np.flatnonzero(np.diff(users)) + 1]
     rank = np.arange(users.size) - np.repeat(starts, np.diff(np.r_[starts, users.size]))
-    return p[rank < cap]
+    return order[rank >= cap]

@@ -157,8 +157,9 @@ def _binary_csr(matrix) -> sp.csr_matrix:
             f"{int(bad.sum())} stored value(s) differ from 1 (e.g. {x.data[bad][0]!r}); "
             "set every consumed cell to 1 before profiling (counts belong elsewhere)"
         )
-    # int64: X^T X on int8/bool data would overflow or saturate on popular items.
-    x.data = np.ones(x.nnz, dtype=np.int64)
+    # int32: X^T X on int8/bool data would overflow or saturate on popular items; int32
+    # counts co-consumers exactly up to 2**31 users.
+    x.data = np.ones(x.nnz, dtype=np.int32)
     return x
 
 
@@ -225,18 +226,133 @@ def significant_pairs(both, n_y, base, *, confidence: float = 0.95,
     m = both.size if tests is None else int(tests)
     if both.size == 0:
         return np.zeros(0, dtype=bool)
+    pvals = _pvalues(both, n_y, base)
+    alpha = (1.0 - confidence) / 2.0
+    return pvals <= _bh_cutoff(pvals[pvals <= alpha], alpha=alpha, tests=m)
+
+
+def _pvalues(both: np.ndarray, n_y: np.ndarray, base: np.ndarray) -> np.ndarray:
+    """One-sided score-test p-values of ``P(x | y) = base`` against ``> base`` (see
+    :func:`significant_pairs`); 1 where the statistic is undefined."""
     with np.errstate(divide="ignore", invalid="ignore"):
         z = (both / n_y - base) / np.sqrt(base * (1.0 - base) / n_y)
     # base = 0 (x never seen among exposed users) cannot happen for a co-consumed x.
-    pvals = np.where(np.isfinite(z), norm.sf(z), 1.0)
-    alpha = (1.0 - confidence) / 2.0
-    order = np.argsort(pvals, kind="stable")
-    ranked = pvals[order]
-    passing = np.flatnonzero(ranked <= alpha * np.arange(1, ranked.size + 1) / max(m, 1))
-    sig = np.zeros(both.size, dtype=bool)
-    if passing.size:
-        sig[order[: passing[-1] + 1]] = True
-    return sig
+    return np.where(np.isfinite(z), norm.sf(z), 1.0)
+
+
+def _bh_cutoff(small: np.ndarray, *, alpha: float, tests: int) -> float:
+    """Benjamini-Hochberg step-up cutoff: pairs with ``p <= cutoff`` are called.
+
+    ``small`` holds every p-value at or below ``alpha`` among ``tests`` hypotheses (larger
+    ones can never pass, as the step-up threshold ``alpha k / tests`` never exceeds
+    ``alpha``, and they rank after these). -inf when nothing passes. Equal p-values pass or
+    fail together: if p_(j) = p_(k) with j > k and p_(k) passes, so does p_(j).
+    """
+    ranked = np.sort(np.asarray(small, dtype=np.float64))
+    passing = np.flatnonzero(ranked <= alpha * np.arange(1, ranked.size + 1) / max(tests, 1))
+    return float(ranked[passing[-1]]) if passing.size else -math.inf
+
+
+_BLOCK_PRODUCTS = 10_000_000
+"""Bound on the user-level products (so on the pairs) one block of items may produce; the
+per-pair arrays of a block stay under about a gigabyte."""
+
+_KEPT_PAIRS = 30_000_000
+"""Pairs with ``p <= alpha`` kept between the two steps of the false-discovery control
+(28 bytes each); beyond it the blocks are computed a second time instead."""
+
+
+@dataclass(slots=True)
+class _Block:
+    """Scored ordered pairs "x given y" of one block of conditioning items y."""
+
+    y: np.ndarray
+    x: np.ndarray
+    both: np.ndarray
+    low: np.ndarray
+    estimate: np.ndarray | None
+    base: np.ndarray | None
+    pval: np.ndarray | None
+
+    def best_into(self, best_p: np.ndarray, best_base: np.ndarray) -> None:
+        """Each y's strongest candidate: the largest ``low - base`` (ties: lowest x)."""
+        if not self.y.size:
+            return
+        by = np.lexsort((self.x, -(self.low - self.base), self.y))
+        pick = by[np.unique(self.y[by], return_index=True)[1]]
+        best_p[self.y[pick]] = self.estimate[pick]
+        best_base[self.y[pick]] = self.base[pick]
+
+    def subset(self, keep: np.ndarray) -> _Block:
+        """The pairs in ``keep``, with only what the second step reads (y, x, both, low,
+        pval)."""
+        return _Block(self.y[keep], self.x[keep], self.both[keep], self.low[keep], None, None,
+                      None if self.pval is None else self.pval[keep])
+
+
+class _BlockScan:
+    """``C = X^T X`` a block of rows (conditioning items y) at a time, each row's pairs
+    scored: the cost of the whole scan is ``sum over users of h_u^2`` as for one product,
+    the memory that of one block."""
+
+    def __init__(self, x: sp.csr_matrix, support: np.ndarray, base_of: np.ndarray, *,
+                 confidence: float, min_pair_users: int, pvalues: bool = True):
+        self.x = x
+        self.xt = x.T.tocsr()
+        self.support = support
+        self.base_of = base_of
+        self.confidence = confidence
+        self.min_pair_users = min_pair_users
+        self.pvalues = pvalues
+        history = np.diff(x.indptr).astype(np.float64)
+        cost = np.cumsum(self.xt @ history)
+        cuts = np.searchsorted(cost, np.arange(_BLOCK_PRODUCTS, cost[-1], _BLOCK_PRODUCTS)
+                               ) if cost.size and cost[-1] > _BLOCK_PRODUCTS else []
+        self.edges = np.unique(np.concatenate([[0], cuts, [x.shape[1]]])).astype(np.int64)
+
+    def blocks(self):
+        for lo, hi in zip(self.edges[:-1], self.edges[1:]):
+            c = (self.xt[lo:hi] @ self.x).tocoo()
+            y = c.row.astype(np.int64) + lo
+            keep = (y != c.col) & (c.data >= self.min_pair_users)
+            y, x, both = y[keep], c.col[keep].astype(np.int64), c.data[keep].astype(np.int64)
+            del c, keep
+            n_y = self.support[y]
+            ci = wilson_interval(both, n_y, confidence=self.confidence)
+            base = self.base_of[x]
+            yield _Block(y, x, both, np.asarray(ci.low), np.asarray(ci.estimate), base,
+                         _pvalues(both.astype(float), n_y.astype(float), base)
+                         if self.pvalues else None)
+
+
+class _TopPairs:
+    """The strongest significant pairs seen so far: largest Wilson lower bound first, then
+    most co-consumers, then by y and x, so that the table is the same on every run."""
+
+    def __init__(self, n: int):
+        self.n = n
+        self.cols = [np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0, np.int64),
+                     np.zeros(0)]
+
+    def add(self, block: _Block, sig: np.ndarray) -> None:
+        if not self.n:
+            return
+        idx = np.flatnonzero(sig)
+        y, x, both, low = (np.concatenate([old, new[idx]]) for old, new in
+                           zip(self.cols, (block.y, block.x, block.both, block.low)))
+        order = np.lexsort((x, y, -both, -low))[:self.n]
+        self.cols = [y[order], x[order], both[order], low[order]]
+
+    def rows(self, support: np.ndarray, base_of: np.ndarray, *,
+             confidence: float) -> tuple[PairRow, ...]:
+        y, x, both, low = self.cols
+        n_y = support[y]
+        ci = wilson_interval(both, n_y, confidence=confidence)
+        return tuple(
+            PairRow(y=int(y[i]), x=int(x[i]), both=int(both[i]), n_y=int(n_y[i]),
+                    p=float(np.asarray(ci.estimate)[i]), low=float(low[i]),
+                    high=float(np.asarray(ci.high)[i]), base_rate=float(base_of[x[i]]))
+            for i in range(y.size))
 
 
 def cooccurrence_profile(
@@ -321,9 +437,13 @@ def cooccurrence_profile(
     *scored* pair can exceed the nominal rate for rare items. Read the counts as
     evidence of structure, not as a list of certified pairs.
 
-    Cost: computing ``C`` takes time and memory of order ``sum over users of h_u^2``,
-    ``h_u`` being the user's capped history length; everything afterwards works on the
-    non-zeros of ``C`` (no dense items x items array).
+    Cost: computing ``C`` takes time of order ``sum over users of h_u^2``, ``h_u`` being
+    the user's capped history length. ``C`` is computed and scored a block of conditioning
+    items at a time (about ten million pairs per block), so memory is that of one block plus
+    the per-item results, not of ``C``; with false-discovery control the pairs with
+    ``p <= (1 - confidence) / 2`` are kept (28 bytes each) until the step-up cutoff is
+    known, or, past thirty million of them, the blocks are computed twice. No dense
+    items x items array is ever built.
 
     References
     ----------
@@ -379,17 +499,6 @@ def cooccurrence_profile(
                 "the matrix's item index"
             )
 
-    # The one expensive step. C is symmetric; keeping both triangles gives each ordered
-    # pair (row x, column y) its own entry, so P(x|y) is vectorised over C's non-zeros.
-    c = (x.T @ x).tocoo()
-    rows, cols, both = c.row, c.col, np.asarray(c.data, dtype=np.int64)
-    keep = (rows != cols) & (both >= min_pair_users)
-    rows, cols, both = rows[keep], cols[keep], both[keep]
-    del c, keep
-
-    n_y = support[cols]
-    ci = wilson_interval(both, n_y, confidence=confidence)
-    low, high, p = np.asarray(ci.low), np.asarray(ci.high), np.asarray(ci.estimate)
     if exposed_users is None:
         exposed = np.full(n_items, float(n_users))
     else:
@@ -400,17 +509,55 @@ def cooccurrence_profile(
                 "least the item's support (an item's users were all exposed to it); got "
                 f"shape {exposed.shape}"
             )
-    base = support[rows] / np.maximum(exposed[rows], 1.0)
-    if false_discovery_control:
-        n_active_items = int((support >= 1).sum())
-        sig = significant_pairs(both, n_y, base, confidence=confidence,
-                                tests=max(n_active_items * (n_active_items - 1), 1))
-    else:
-        sig = low > base
+    base_of = support / np.maximum(exposed, 1.0)
+    alpha = (1.0 - confidence) / 2.0
+    n_active = int((support >= 1).sum())
+    tests = max(n_active * (n_active - 1), 1)
+    scan = _BlockScan(x, support, base_of, confidence=confidence,
+                      min_pair_users=min_pair_users, pvalues=false_discovery_control)
+    best_p = np.full(n_items, np.nan)
+    best_base = np.full(n_items, np.nan)
+    neighbours = np.zeros(n_items, dtype=np.int64)
+    top = _TopPairs(top_n)
+    pairs_scored = 0
 
-    neighbours = np.bincount(cols[sig], minlength=n_items).astype(np.int64)
+    if not false_discovery_control:
+        for b in scan.blocks():
+            pairs_scored += b.y.size
+            b.best_into(best_p, best_base)
+            sig = b.low > b.base
+            neighbours += np.bincount(b.y[sig], minlength=n_items)
+            top.add(b, sig)
+    else:
+        # Benjamini-Hochberg needs every p-value before any pair is called. Only pairs with
+        # p <= alpha can pass (the step-up threshold never exceeds alpha), so those are kept
+        # while they fit the budget and the step-up is run on them; beyond the budget only
+        # their p-values are kept and the blocks are scanned a second time.
+        kept: list[_Block] = []
+        small_p: list[np.ndarray] = []
+        n_kept = 0
+        for b in scan.blocks():
+            pairs_scored += b.y.size
+            b.best_into(best_p, best_base)
+            cand = b.pval <= alpha
+            small_p.append(b.pval[cand])
+            n_kept += int(cand.sum())
+            if n_kept <= _KEPT_PAIRS:
+                kept.append(b.subset(cand))
+            else:
+                kept = []
+        pvals = np.concatenate(small_p) if small_p else np.zeros(0)
+        del small_p
+        cutoff = _bh_cutoff(pvals, alpha=alpha, tests=tests)
+        del pvals
+        again = scan.blocks() if n_kept > _KEPT_PAIRS else iter(kept)
+        for b in again:
+            sig = b.pval <= cutoff
+            neighbours += np.bincount(b.y[sig], minlength=n_items)
+            top.add(b, sig)
+        del kept
+
     active = support >= 1
-    n_active = int(active.sum())
     total_weight = float(weights.sum())
     item_share, interaction_share = [], []
     for k in ks:
@@ -419,36 +566,16 @@ def cooccurrence_profile(
         interaction_share.append(
             float(weights[has_k].sum() / total_weight) if total_weight > 0 else math.nan
         )
-
-    # Each item's strongest candidate: the scored pair whose lower bound clears (or comes
-    # closest to) the base rate; the cold-item planner sizes the data still needed from it.
-    best_p = np.full(n_items, np.nan)
-    best_base = np.full(n_items, np.nan)
-    if cols.size:
-        by_item = np.lexsort((rows, -(low - base), cols))
-        first = np.unique(cols[by_item], return_index=True)[1]
-        pick = by_item[first]
-        best_p[cols[pick]] = p[pick]
-        best_base[cols[pick]] = base[pick]
-
-    # Strongest first by lower bound; ties by co-consumers, then indices, so that the
-    # table is the same on every run.
-    idx = np.flatnonzero(sig)
-    order = np.lexsort((rows[idx], cols[idx], -both[idx], -low[idx]))[:top_n]
-    top = tuple(
-        PairRow(
-            y=int(cols[i]), x=int(rows[i]), both=int(both[i]), n_y=int(n_y[i]),
-            p=float(p[i]), low=float(low[i]), high=float(high[i]), base_rate=float(base[i]),
-        )
-        for i in idx[order]
-    )
+    top_rows = top.rows(support, base_of, confidence=confidence)
+    pairs_significant = int(neighbours.sum())
+    ci_level = wilson_interval(1, 2, confidence=confidence).confidence
 
     return CooccurrenceProfile(
         n_users=int(n_users),
         n_items=int(n_items),
         n_interactions=int(x.nnz),
         active_items=n_active,
-        confidence=float(ci.confidence),
+        confidence=float(ci_level),
         min_pair_users=int(min_pair_users),
         support=support,
         significant_neighbours=neighbours,
@@ -456,10 +583,10 @@ def cooccurrence_profile(
         item_share=tuple(item_share),
         interaction_share=tuple(interaction_share),
         weighted=item_weights is not None,
-        pairs_scored=int(rows.size),
-        pairs_significant=int(sig.sum()),
+        pairs_scored=int(pairs_scored),
+        pairs_significant=pairs_significant,
         median_neighbours=float(np.median(neighbours[active])) if n_active else math.nan,
         best_p=best_p,
         best_base=best_base,
-        top_pairs=top,
+        top_pairs=top_rows,
     )
