@@ -167,12 +167,19 @@ def _audit_options(f):
         click.option("--seed", type=int, help="Seed of every random step (default 20261201)."),
         click.option("--backtest/--no-backtest", default=None,
                      help="Run the offline backtest and learning curve (default: on)."),
-        click.option("--engine", type=click.Choice(["pandas", "duckdb"]), default=None,
-                     help="Engine for reading, validation and counting: pandas (in memory, "
-                          "every format) or duckdb (out of core; Parquet and CSV). Default "
-                          "pandas."),
+        click.option("--engine", type=click.Choice(["auto", "duckdb", "pandas", "spark"]),
+                     default=None,
+                     help="Engine for reading, validation and counting: duckdb (embedded, out "
+                          "of core; Parquet and CSV), pandas (in memory, every format) or "
+                          "spark (Parquet paths Spark can reach; needs the spark extra and "
+                          "Java). Default auto: duckdb, or pandas for input duckdb does not "
+                          "read."),
         click.option("--threads", type=click.IntRange(1, 1024), default=None,
-                     help="Threads for the duckdb engine (default: all cores)."),
+                     help="Threads for the duckdb engine and a local Spark (default: all "
+                          "cores)."),
+        click.option("--spark-master", metavar="URL", default=None,
+                     help="Spark master for --engine spark (local[4], spark://host:7077, "
+                          "yarn); default: the active session, else local[threads]."),
         click.option("--history", "history_path", type=click.Path(dir_okay=False, path_type=Path),
                      help="History database (default: history.sqlite in --out)."),
         click.option("--no-history", is_flag=True, help="Do not record the audit in the history."),
@@ -192,7 +199,8 @@ def _audit_options(f):
 
 
 def _make_config(config_file, rules_file, user_col, item_col, time_col, event_col, value_col,
-                 seed, backtest, as_of=None, engine=None, threads=None) -> AuditConfig:
+                 seed, backtest, as_of=None, engine=None, threads=None,
+                 spark_master=None) -> AuditConfig:
     cfg = load_config(config_file)
     cols = {k: v for k, v in dict(user=user_col, item=item_col, ts=time_col,
                                   event=event_col, value=value_col).items() if v}
@@ -211,6 +219,8 @@ def _make_config(config_file, rules_file, user_col, item_col, time_col, event_co
         kw["engine"] = engine
     if threads is not None:
         kw["threads"] = threads
+    if spark_master is not None:
+        kw["spark_master"] = spark_master
     cfg = replace(cfg, **kw)
     validate_config(cfg)
     return cfg
@@ -312,8 +322,8 @@ def _gate(result, previous, fail_on) -> int:
               help="Exit non-zero for a pipeline to gate on: no-go (10), go-lost: go last "
                    "audit, no-go now (11), tier-drop: headline tier fell (12). Repeatable.")
 def audit(logs, catalog, config_file, rules_file, user_col, item_col, time_col, event_col,
-          value_col, seed, backtest, engine, threads, history_path, no_history, quiet, user_ids,
-          salt, out, as_of, editorial_rows, as_json, fail_on):
+          value_col, seed, backtest, engine, threads, spark_master, history_path, no_history,
+          quiet, user_ids, salt, out, as_of, editorial_rows, as_json, fail_on):
     """Audit LOGS (a file or a folder of weekly drops) and write reports to --out.
 
     \b
@@ -333,7 +343,8 @@ def audit(logs, catalog, config_file, rules_file, user_col, item_col, time_col, 
     try:
         with _sigterm_interrupts():
             cfg = _make_config(config_file, rules_file, user_col, item_col, time_col,
-                               event_col, value_col, seed, backtest, as_of, engine, threads)
+                               event_col, value_col, seed, backtest, as_of, engine, threads,
+                               spark_master)
             privacy = _privacy(user_ids, salt)
             result, written, previous = _run_and_write(
                 logs, catalog, cfg, out, history_path=history_path, no_history=no_history,
@@ -379,8 +390,8 @@ def _week_ends(start: str, end: str) -> list[str]:
               default=Path("advisor-report"), show_default=True,
               help="Folder for the history; each week's reports go to OUT/weeks/DATE.")
 def backfill(logs, catalog, config_file, rules_file, user_col, item_col, time_col, event_col,
-             value_col, seed, backtest, engine, threads, history_path, no_history, quiet,
-             user_ids, salt, start, end, out):
+             value_col, seed, backtest, engine, threads, spark_master, history_path,
+             no_history, quiet, user_ids, salt, start, end, out):
     """Audit every past week from --from to --to (as of each Sunday) and fill the history.
 
     \b
@@ -400,7 +411,8 @@ def backfill(logs, catalog, config_file, rules_file, user_col, item_col, time_co
             privacy = _privacy(user_ids, salt)
             path = history_path or default_history_path(out)
             base = _make_config(config_file, rules_file, user_col, item_col, time_col,
-                                event_col, value_col, seed, backtest, None, engine, threads)
+                                event_col, value_col, seed, backtest, None, engine, threads,
+                                spark_master)
             for day in weeks:
                 week_out = out / "weeks" / day
                 cfg = replace(base, as_of=day)

@@ -139,13 +139,26 @@ class AuditConfig:
     """Run the offline backtest and learning curve (the evidence stage)."""
     backtest_users: int = 5000
     """Test users sampled for the backtest (seeded)."""
+    backtest_sample_users: int = 100_000
+    """Users the backtest trains and tests on; a log with more is backtested on a seeded
+    sample of this many (a cost bound: the fits grow with users and items), and the report
+    says so. Raise it for a slower estimate closer to the whole log's."""
     rules_file: str | None = None
     """A user's rules TOML that overrides or adds to the shipped rules."""
-    engine: str = "pandas"
-    """Engine of the read, validate and aggregate stages: ``pandas`` (in memory) or
-    ``duckdb`` (embedded, out of core; needs the ``duckdb`` package)."""
+    engine: str = "auto"
+    """Engine of the read, validate and aggregate stages: ``duckdb`` (embedded, out of
+    core), ``pandas`` (in memory, reads every supported format), ``spark`` (Apache Spark,
+    for Parquet on a cluster or in a data lake; needs the ``spark`` extra and Java), or
+    ``auto``: duckdb, falling back to pandas for input duckdb does not read (JSON Lines,
+    for one); the report names the engine that ran."""
     threads: int | None = None
-    """Threads the ``duckdb`` engine may use; ``None``: every core of the machine."""
+    """Threads the ``duckdb`` engine (and a local Spark) may use; ``None``: every core."""
+    engine_memory_gib: float | None = None
+    """Memory the ``duckdb`` engine may use before it spills to disk, GiB; ``None``: a
+    quarter of the machine's memory, at most 3 GiB."""
+    spark_master: str | None = None
+    """Spark master URL (``local[4]``, ``spark://host:7077``, ``yarn``); ``None``: the active
+    Spark session if there is one, else ``local[threads]``."""
 
     def event_rule(self, name: str) -> EventRule | None:
         key = name.strip().lower()
@@ -159,11 +172,11 @@ _TOP_KEYS = {"columns", "catalog", "events", "audit"}
 _AUDIT_KEYS = {
     "unmapped_events_count", "as_of", "history_cap", "confidence", "min_pair_users",
     "exclude_implausible", "implausible_quantile", "implausible_factor",
-    "max_events_per_hour", "seed", "backtest", "backtest_users", "rules_file",
-    "engine", "threads",
+    "max_events_per_hour", "seed", "backtest", "backtest_users", "backtest_sample_users",
+    "rules_file", "engine", "threads", "engine_memory_gib", "spark_master",
 }
 #: Engines that can compute the aggregates.
-ENGINES = ("pandas", "duckdb")
+ENGINES = ("auto", "duckdb", "pandas", "spark")
 _EVENT_KEYS = {"counts", "weight", "value", "min", "max"}
 
 
@@ -277,7 +290,8 @@ def apply_config(data: dict, cfg: AuditConfig, where: str = "config") -> AuditCo
         defaults = AuditConfig()
         kw = {}
         for k, v in aud.items():
-            want = int if k == "threads" else type(getattr(defaults, k))
+            want = {"threads": int, "engine_memory_gib": float}.get(
+                k, type(getattr(defaults, k)))
             types = (int, float) if want is float else (str,) if want is type(None) else (want,)
             kw[k] = _expect(v, types, f"audit.{k}", where)
             if want is float:
@@ -300,6 +314,10 @@ def validate_config(cfg: AuditConfig) -> None:
             f"implausible_quantile must be between 0.5 and 1, got {cfg.implausible_quantile}")
     if cfg.backtest_users < 10:
         raise ConfigError(f"backtest_users must be at least 10, got {cfg.backtest_users}")
+    if cfg.backtest_sample_users < 1000:
+        raise ConfigError(
+            f"backtest_sample_users must be at least 1000 (fewer leaves the models too little "
+            f"to learn from), got {cfg.backtest_sample_users}")
     if cfg.implausible_factor < 1.0:
         raise ConfigError(
             f"implausible_factor must be at least 1 (a multiple of the activity quantile), got "
@@ -311,8 +329,14 @@ def validate_config(cfg: AuditConfig) -> None:
         raise ConfigError(f"seed must be a non-negative integer, got {cfg.seed}")
     if cfg.engine not in ENGINES:
         raise ConfigError(
-            f"engine must be one of {', '.join(ENGINES)}, got {cfg.engine!r}; use --engine "
-            "pandas (in memory) or --engine duckdb (large logs)")
+            f"engine must be one of {', '.join(ENGINES)}, got {cfg.engine!r}; leave it unset "
+            "(auto), or use --engine duckdb (out of core), pandas (in memory) or spark "
+            "(Parquet on a cluster)")
+    if cfg.engine_memory_gib is not None and not (
+            isinstance(cfg.engine_memory_gib, (int, float))
+            and not isinstance(cfg.engine_memory_gib, bool) and cfg.engine_memory_gib >= 0.25):
+        raise ConfigError(f"engine_memory_gib must be a number of GiB, at least 0.25, got "
+                          f"{cfg.engine_memory_gib!r}; leave it unset for the automatic limit")
     if cfg.threads is not None and (isinstance(cfg.threads, bool) or cfg.threads < 1):
         raise ConfigError(f"threads must be at least 1, got {cfg.threads!r}; leave it unset "
                           "to use every core")

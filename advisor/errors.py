@@ -10,6 +10,7 @@ from __future__ import annotations
 __all__ = [
     "AdvisorError",
     "ConfigError",
+    "EngineUnsupportedError",
     "HistoryError",
     "InsufficientDataError",
     "LogFormatError",
@@ -34,6 +35,16 @@ class ConfigError(AdvisorError, ValueError):
     """A config file or option is malformed, misspelled or contradictory."""
 
     exit_code = 2
+
+
+class EngineUnsupportedError(ConfigError):
+    """The chosen engine does not read this input (yet); another engine does. With the
+    default engine choice (``auto``) the audit falls back to the in-memory engine."""
+
+    def __init__(self, message: str, *, reason: str | None = None):
+        super().__init__(message)
+        self.reason = reason or message
+        """What the engine does not read, in a few words (for the fallback note)."""
 
 
 class RulesError(ConfigError):

@@ -18,6 +18,7 @@ import pandas as pd
 from advisor import __version__
 from advisor.aggregate import Aggregates, aggregate
 from advisor.config import AuditConfig
+from advisor.errors import AdvisorError, ConfigError, EngineUnsupportedError
 from advisor.load import read_catalog, read_logs
 from advisor.load.model import ColumnDetection, InputFile
 from advisor.profile.bundle import Profile, build_profile, item_categories
@@ -53,6 +54,9 @@ class RunInfo:
     """Audit date: events after it were set aside (ISO-8601, UTC)."""
     seed: int
     """Seed of every random step."""
+    engine: str
+    """Engine that read, validated and counted the events (``pandas``, ``duckdb`` or
+    ``spark``; with ``engine = "auto"`` the one chosen)."""
     config: dict
     """Effective settings."""
 
@@ -128,17 +132,23 @@ def audit(logs: str | Path, *, catalog: str | Path | None = None,
     started = datetime.now(timezone.utc).isoformat(timespec="seconds")
     rules = load_rules(config.rules_file)
 
-    if config.engine == "duckdb":
-        files, columns, raw_cat, log, agg, events = _duckdb_stages(logs, catalog, config, say)
+    engine = config.engine
+    fallback = None
+    if engine == "auto":
+        try:
+            stages = _engine_stages(logs, catalog, config, say, engine="duckdb")
+            engine = "duckdb"
+        except EngineUnsupportedError as exc:
+            stages, engine = _pandas_stages(logs, catalog, config, say), "pandas"
+            fallback = (f"Read in memory (pandas engine): the embedded DuckDB engine does "
+                        f"not read this input ({exc.reason}).")
+    elif engine in ("duckdb", "spark"):
+        stages = _engine_stages(logs, catalog, config, say, engine=engine)
     else:
-        say("reading logs")
-        raw = read_logs(logs, config.columns)
-        raw_cat = read_catalog(catalog, config.catalog_columns) if catalog is not None else None
-        say("validating")
-        log = _catalog_as_of(validate(raw, raw_cat, config))
-        say("aggregating")
-        agg = aggregate(log)
-        files, columns, events = raw.files, raw.columns, None
+        stages = _pandas_stages(logs, catalog, config, say)
+    files, columns, raw_cat, log, agg, events = stages
+    if fallback is not None:
+        log = replace(log, quality=replace(log.quality, notes=log.quality.notes + (fallback,)))
     say("profiling")
     profile = build_profile(log, agg, config, events=events)
     metrics = {**profile_metrics(profile), **quality_metrics(log.quality)}
@@ -167,6 +177,7 @@ def audit(logs: str | Path, *, catalog: str | Path | None = None,
         seconds=round(time.perf_counter() - t0, 3),
         as_of=log.as_of.isoformat(),
         seed=config.seed,
+        engine=engine,
         config=_config_dict(config),
     )
     inputs = files + ((raw_cat.file,) if raw_cat is not None else ())
@@ -175,12 +186,58 @@ def audit(logs: str | Path, *, catalog: str | Path | None = None,
                        log.quarantine, profile, evidence, metrics, rules, decision, users, items)
 
 
-def _duckdb_stages(logs, catalog, config: AuditConfig, say):
-    """Read, validate and aggregate with the embedded DuckDB engine (events stay in DuckDB)."""
-    from advisor.aggregate.duckdb_engine import DuckDBEngine
+def _pandas_stages(logs, catalog, config: AuditConfig, say):
+    """Read, validate and aggregate in memory."""
+    say("reading logs")
+    raw = read_logs(logs, config.columns)
+    raw_cat = read_catalog(catalog, config.catalog_columns) if catalog is not None else None
+    say("validating")
+    log = _catalog_as_of(validate(raw, raw_cat, config))
+    say("aggregating")
+    return raw.files, raw.columns, raw_cat, log, aggregate(log), None
+
+
+def _engine_stages(logs, catalog, config: AuditConfig, say, *, engine: str):
+    """Read, validate and aggregate with the DuckDB or the Spark engine (the events stay in
+    the engine; only the aggregates come back)."""
+    if engine == "spark":
+        from advisor.aggregate.spark_engine import SparkEngine as Engine
+    else:
+        from advisor.aggregate.duckdb_engine import DuckDBEngine as Engine
 
     say("reading logs")
-    with DuckDBEngine.open(logs, config) as engine:
+    try:
+        return _run_engine(Engine, logs, catalog, config, say)
+    except AdvisorError:
+        raise
+    except Exception as exc:
+        if engine == "duckdb":
+            _raise_for_duckdb(exc)
+        raise
+
+
+def _raise_for_duckdb(exc: Exception) -> None:
+    """Turn an error DuckDB raised while reading or counting into the tool's own: out of
+    memory says what to change; anything else (an encoding or format fault DuckDB meets in
+    a file) points at the in-memory engine, which names the row at fault, and lets
+    ``engine = "auto"`` fall back to it."""
+    import duckdb
+
+    if not isinstance(exc, duckdb.Error):
+        return
+    first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+    if isinstance(exc, duckdb.OutOfMemoryException):
+        raise ConfigError(
+            f"DuckDB ran out of memory ({first}); raise engine_memory_gib in [audit], or free "
+            "disk space in the temporary folder it spills to.") from None
+    raise EngineUnsupportedError(
+        f"--engine duckdb stopped reading the log ({first}); use --engine pandas, which "
+        "reads it or names the file and row at fault.",
+        reason=f"DuckDB stopped: {first[:160]}") from None
+
+
+def _run_engine(Engine, logs, catalog, config: AuditConfig, say):
+    with Engine.open(logs, config) as engine:
         raw_cat = read_catalog(catalog, config.catalog_columns) if catalog is not None else None
         say("validating")
         log = engine.validate(raw_cat)
@@ -242,6 +299,7 @@ def _evidence(agg: Aggregates, log, config: AuditConfig, say):
         cats = codes.astype(np.int64)
     return gather_evidence(pairs, agg.n_users, agg.n_items, item_category=cats,
                            seed=config.seed, max_test_users=config.backtest_users,
+                           max_users=config.backtest_sample_users,
                            confidence=config.confidence, progress=say)
 
 

@@ -329,6 +329,26 @@ def test_json_lines_is_refused_with_a_pointer_to_the_pandas_engine(tmp_path):
         DuckDBEngine.open(tmp_path / "log.jsonl", AuditConfig(engine="duckdb"))
 
 
+def test_default_engine_is_duckdb_and_falls_back_to_memory_for_what_it_cannot_read(tmp_path):
+    """engine = "auto": a CSV log is read by DuckDB; a multi-line quoted CSV is read in
+    memory, with a note naming the file and why; the results are the pandas engine's."""
+    rows = [f"u{i % 7},i{i % 5},{1_700_000_000 + 3600 * i}" for i in range(60)]
+    plain = _csv(tmp_path / "plain.csv", "user,item,ts", rows)
+    assert AuditConfig().engine == "auto"
+    got = advisor.audit(plain, config=AuditConfig(backtest=False))
+    assert got.run.engine == "duckdb"
+    assert not any("Read in memory" in n for n in got.quality.notes)
+
+    odd = _csv(tmp_path / "odd.csv", "user,item,ts", rows + ['"u\n1",i1,1700999999'])
+    got = advisor.audit(odd, config=AuditConfig(backtest=False))
+    assert got.run.engine == "pandas"
+    note = [n for n in got.quality.notes if n.startswith("Read in memory")]
+    assert len(note) == 1 and "odd.csv" in note[0] and "CSV reader stopped" in note[0]
+    forced = advisor.audit(odd, config=AuditConfig(backtest=False, engine="pandas"))
+    assert got.to_dict()["verdict"] == forced.to_dict()["verdict"]
+    assert got.metrics == forced.metrics
+
+
 @pytest.mark.parametrize("text", [
     "user,item,ts\na,b,1700000000\n\na,c,1700000001\n",  # a blank line
     'user,item,ts\n"a\nb",b,1700000000\na,c,1700000001\n',  # a line break inside quotes

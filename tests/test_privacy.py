@@ -221,10 +221,14 @@ AUDIT_KEYS_BY_KIND = {
     "number or switch": {"unmapped_events_count", "history_cap", "confidence",
                          "min_pair_users", "exclude_implausible", "implausible_quantile",
                          "implausible_factor", "max_events_per_hour", "seed", "backtest",
-                         "backtest_users", "threads"},
+                         "backtest_users", "backtest_sample_users", "threads",
+                         "engine_memory_gib"},
     "date": {"as_of"},
     "file that is read": {"rules_file"},
     "engine name": {"engine"},
+    # Where Spark runs the counting (local[n], spark://host:port, yarn); nothing is written
+    # there by the audit, the aggregates come back to this process.
+    "cluster address": {"spark_master"},
 }
 
 

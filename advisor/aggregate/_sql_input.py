@@ -4,8 +4,8 @@ DuckDB reads the files itself (out of core). This module decides, per file, how 
 column becomes the canonical text or number the validation rules read, so that the result
 is the same as the in-memory reader's (``advisor.load.readers``): integers and booleans as
 their text, strings as they are, Parquet timestamps as instants. Anything whose text form
-could differ between the two readers is refused with a :class:`ConfigError` that points at
-``--engine pandas``; nothing is read differently in silence.
+could differ between the two readers is refused with an :class:`EngineUnsupportedError`
+that points at ``--engine pandas``; nothing is read differently in silence.
 
 Lines: Parquet has none, so the row number + 1 stands in (as in the in-memory reader). A
 delimited file is read only when every record is on its own line (no blank lines, no line
@@ -28,7 +28,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from advisor.config import LogColumns
-from advisor.errors import ConfigError, LogFormatError
+from advisor.errors import EngineUnsupportedError, LogFormatError
 from advisor.load.columns import detect_log_columns
 from advisor.load.model import LINE_COL, LOG_FIELDS, SOURCE_COL, ColumnDetection, InputFile
 from advisor.load.readers import _arrow_frame, detect_format, list_input_files, open_parquet
@@ -72,10 +72,10 @@ def quote_str(text: str) -> str:
     return "'" + text.replace("'", "''") + "'"
 
 
-def _unsupported(source: str, what: str) -> ConfigError:
-    return ConfigError(
+def _unsupported(source: str, what: str) -> EngineUnsupportedError:
+    return EngineUnsupportedError(
         f"{source}: --engine duckdb does not read {what} yet; use --engine pandas for this "
-        "input (it reads every supported format)."
+        "input (it reads every supported format).", reason=f"{source}: {what}"
     )
 
 
@@ -262,10 +262,12 @@ def _delimited(con, index: int, path: Path, source: str, fmt: str, given: dict[s
     except Exception as exc:  # duckdb.Error; the module is imported lazily
         # Quoted line breaks, ragged rows or bad bytes: the in-memory reader either reads
         # them or names the offending line, so point there.
-        raise ConfigError(
+        raise EngineUnsupportedError(
             f"{source}: --engine duckdb cannot read it as {fmt.upper()} "
             f"({str(exc).splitlines()[0]}); use --engine pandas, which reads quoted line "
-            "breaks and names the line of any real fault."
+            "breaks and names the line of any real fault.",
+            reason=(f"{source}: DuckDB's {fmt.upper()} reader stopped: "
+                    f"{str(exc).splitlines()[0][:160]}")
         ) from None
     rows = con.execute(f"SELECT count(*) FROM {table}").fetchall()[0][0]
     if rows == 0:
@@ -294,7 +296,7 @@ def open_sources(con, path: str | Path, columns: LogColumns | None
     ------
     LogFormatError
         As :func:`advisor.load.read_logs` does (missing columns, files that map differently).
-    ConfigError
+    EngineUnsupportedError
         For inputs this engine does not read yet (JSON, gzip-compressed Parquet, exotic
         column types, delimited text with blank lines or multi-line values).
     """

@@ -10,7 +10,7 @@ to a temporary folder) plus the aggregates themselves.
 Both engines must give identical results; ``tests/test_aggregate_duckdb.py`` checks it. What
 this engine does not read yet (JSON Lines, gzip-compressed Parquet, delimited text with blank
 lines or line breaks inside quoted values, exotic column types) is refused with a
-:class:`ConfigError` pointing at ``--engine pandas``.
+:class:`EngineUnsupportedError` pointing at ``--engine pandas``.
 
 ``duckdb`` is imported only when this engine is used.
 
@@ -40,7 +40,7 @@ from advisor.aggregate.model import Aggregates
 from advisor.aggregate.pandas_engine import _WEEK, week_start
 from advisor.aggregate.summary import EventSummary
 from advisor.config import AuditConfig
-from advisor.errors import ConfigError, InsufficientDataError
+from advisor.errors import EngineUnsupportedError, InsufficientDataError
 from advisor.load.model import LOG_FIELDS, ColumnDetection, InputFile, RawCatalog
 from advisor.validate.anomalies import (
     MIN_USERS_FOR_QUANTILE,
@@ -58,36 +58,45 @@ _DAY_NS = 86_400_000_000_000
 _HOUR_NS = 3_600_000_000_000
 _SEC_NS = 1_000_000_000
 _MONDAY_SHIFT = 3 * 86400
-#: Share of the machine's memory DuckDB may use before it spills to disk: half, leaving the
-#: other half for the aggregates held in Python at the same time (common practice, no
-#: published source).
-MEMORY_SHARE = 0.5
+#: Share of the machine's memory DuckDB may use before it spills to its temporary folder,
+#: and the most it may use whatever the machine: the aggregates that come back to Python
+#: (about 36 bytes per distinct user-item pair) need room beside it, and the 100M-event
+#: benchmark must stay under 8 GiB (common practice, no published source; set
+#: ``engine_memory_gib`` to give DuckDB more on a large machine).
+MEMORY_SHARE = 0.25
+MEMORY_CAP = 3 << 30
 
 
-def memory_limit_bytes(share: float = MEMORY_SHARE) -> int:
-    """``share`` of the machine's physical memory, in bytes (4 GiB when unknown)."""
+def memory_limit_bytes(share: float = MEMORY_SHARE, cap: int = MEMORY_CAP) -> int:
+    """``share`` of the machine's physical memory, at most ``cap``, in bytes (``cap`` when
+    the machine's memory is unknown)."""
     try:
         total = os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES")
     except (ValueError, OSError, AttributeError):
-        total = 4 << 30
-    return int(total * share)
+        return int(cap)
+    return int(min(total * share, cap))
 
 
-def _connect(threads: int | None, temp_dir: str):
+def _connect(threads: int | None, temp_dir: str, memory_gib: float | None = None):
     try:
         import duckdb
     except ImportError:
-        raise ConfigError(
+        raise EngineUnsupportedError(
             "--engine duckdb needs the duckdb package, which is not installed; install it "
-            "(pip install duckdb) or use --engine pandas."
+            "(pip install duckdb) or use --engine pandas.",
+            reason="the duckdb package is not installed"
         ) from None
     con = duckdb.connect(":memory:", config={
         "threads": int(threads or os.cpu_count() or 1),
-        "memory_limit": f"{memory_limit_bytes() // (1 << 20)}MB",
+        "memory_limit": f"{_memory_bytes(memory_gib) // (1 << 20)}MB",
         "temp_directory": temp_dir,
     })
     con.execute("SET TimeZone = 'UTC'")
     return con
+
+
+def _memory_bytes(memory_gib: float | None) -> int:
+    return memory_limit_bytes() if memory_gib is None else int(memory_gib * (1 << 30))
 
 
 def _renumber(codes: np.ndarray) -> np.ndarray:
@@ -135,13 +144,13 @@ class DuckDBEngine:
         ------
         LogFormatError
             As :func:`advisor.load.read_logs`.
-        ConfigError
+        EngineUnsupportedError
             If duckdb is missing, or the input is of a kind this engine does not read yet.
         """
         temp_dir = tempfile.mkdtemp(prefix="advisor-duckdb-")
         con = None
         try:
-            con = _connect(config.threads, temp_dir)
+            con = _connect(config.threads, temp_dir, config.engine_memory_gib)
             sv.create_macros(con)
             sources, columns, skipped = open_sources(con, logs, config.columns)
             con.execute("SET preserve_insertion_order = false")
@@ -511,14 +520,7 @@ class DuckDBEngine:
         self._codes = (ucodes, item_labels)
         n_items = item_labels.size
 
-        pairs = con.sql("""
-            SELECT u AS user_idx, i AS item_idx, min(sec) AS first_ts, max(sec) AS last_ts,
-                   count(*)::INTEGER AS events, sum(w) AS weight
-            FROM adv_cev GROUP BY u, i ORDER BY u, i""").to_arrow_table().to_pandas()
-        pairs["user_idx"] = _renumber(ucodes)[pairs["user_idx"].to_numpy()]
-        pairs["item_idx"] = _renumber(icodes)[pairs["item_idx"].to_numpy()]
-        pairs = pairs.astype({"first_ts": np.int64, "last_ts": np.int64, "events": np.int32,
-                              "weight": np.float64})
+        pairs = self._pairs(_renumber(ucodes), _renumber(icodes))
         pu, pi = pairs["user_idx"].to_numpy(), pairs["item_idx"].to_numpy()
         user_items = np.bincount(pu, minlength=n_users).astype(np.int64)
         item_users = np.bincount(pi, minlength=n_items).astype(np.int64)
@@ -560,6 +562,32 @@ class DuckDBEngine:
             first_ts=int(totals[1]),
             last_ts=int(totals[2]),
         )
+
+    def _pairs(self, user_lut: np.ndarray, item_lut: np.ndarray) -> pd.DataFrame:
+        """``Aggregates.pairs``, streamed out of DuckDB in batches straight into numpy
+        columns: peak memory is the finished frame plus one column, not the frame twice (an
+        Arrow table and its pandas copy)."""
+        dtypes = {"user_idx": np.int32, "item_idx": np.int32, "first_ts": np.int64,
+                  "last_ts": np.int64, "events": np.int32, "weight": np.float64}
+        chunks: dict[str, list[np.ndarray]] = {c: [] for c in dtypes}
+        reader = self._con.sql("""
+            SELECT u AS user_idx, i AS item_idx, min(sec) AS first_ts, max(sec) AS last_ts,
+                   count(*)::INTEGER AS events, sum(w) AS weight
+            FROM adv_cev GROUP BY u, i ORDER BY u, i""").to_arrow_reader(1 << 20)
+        for batch in reader:
+            for name, col in zip(batch.schema.names, batch.columns):
+                values = col.to_numpy(zero_copy_only=False)
+                if name == "user_idx":
+                    values = user_lut[values]
+                elif name == "item_idx":
+                    values = item_lut[values]
+                chunks[name].append(values.astype(dtypes[name], copy=False))
+        out = {}
+        for name, dtype in dtypes.items():
+            parts = chunks.pop(name)
+            out[name] = np.concatenate(parts) if parts else np.zeros(0, dtype)
+            del parts
+        return pd.DataFrame(out, copy=False)
 
     def _weekly(self, user_first: np.ndarray, item_first: np.ndarray) -> pd.DataFrame:
         """As ``pandas_engine._weekly``: weeks over the span of all usable events."""

@@ -244,6 +244,8 @@ def _assumptions(r: AuditResult) -> Panel:
                  "promise.")
     if r.evidence is None:
         notes.append("The backtest was switched off: rules that need it are borderline at best.")
+    notes.append(f"Events read, validated and counted by the {r.run.engine} engine (the "
+                 "engines give identical counts on the test logs).")
     # Text, not a markup string: notes carry file names and config sections such as
     # "[events.interaction]" that rich would otherwise take for style tags and drop.
     return Panel(Text("\n".join(f"- {n}" for n in notes)), title="Assumptions",
