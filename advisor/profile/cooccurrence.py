@@ -147,9 +147,11 @@ def _binary_csr(matrix) -> sp.csr_matrix:
         raise LogFormatError(
             f"cooccurrence_profile: matrix must be 2-D (users x items), got {matrix.ndim}-D"
         )
-    x = sp.csr_matrix(matrix, copy=True)
-    x.sum_duplicates()
-    x.eliminate_zeros()
+    x = sp.csr_matrix(matrix)  # no copy when it already is CSR; never modified below
+    if not x.has_canonical_format or (x.data == 0).any():
+        x = x.copy()
+        x.sum_duplicates()
+        x.eliminate_zeros()
     bad = x.data != 1
     if bad.any():
         raise LogFormatError(
@@ -158,9 +160,10 @@ def _binary_csr(matrix) -> sp.csr_matrix:
             "set every consumed cell to 1 before profiling (counts belong elsewhere)"
         )
     # int32: X^T X on int8/bool data would overflow or saturate on popular items; int32
-    # counts co-consumers exactly up to 2**31 users.
-    x.data = np.ones(x.nnz, dtype=np.int32)
-    return x
+    # counts co-consumers exactly up to 2**31 users. The index arrays are shared with the
+    # caller's matrix (not copied: on a large log they are gigabytes).
+    return sp.csr_matrix((np.ones(x.nnz, dtype=np.int32), x.indices, x.indptr),
+                         shape=x.shape, copy=False)
 
 
 def _thresholds(k_thresholds) -> tuple[int, ...]:
@@ -253,9 +256,9 @@ def _bh_cutoff(small: np.ndarray, *, alpha: float, tests: int) -> float:
     return float(ranked[passing[-1]]) if passing.size else -math.inf
 
 
-_BLOCK_PRODUCTS = 10_000_000
+_BLOCK_PRODUCTS = 5_000_000
 """Bound on the user-level products (so on the pairs) one block of items may produce; the
-per-pair arrays of a block stay under about a gigabyte."""
+per-pair arrays of a block stay under about half a gigabyte."""
 
 _KEPT_PAIRS = 30_000_000
 """Pairs with ``p <= alpha`` kept between the two steps of the false-discovery control
@@ -439,7 +442,7 @@ def cooccurrence_profile(
 
     Cost: computing ``C`` takes time of order ``sum over users of h_u^2``, ``h_u`` being
     the user's capped history length. ``C`` is computed and scored a block of conditioning
-    items at a time (about ten million pairs per block), so memory is that of one block plus
+    items at a time (at most five million pairs per block), so memory is that of one block plus
     the per-item results, not of ``C``; with false-discovery control the pairs with
     ``p <= (1 - confidence) / 2`` are kept (28 bytes each) until the step-up cutoff is
     known, or, past thirty million of them, the blocks are computed twice. No dense
