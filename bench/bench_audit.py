@@ -185,14 +185,20 @@ def stage_child(path: str, backtest: bool) -> None:
                           "peak_gib": round(_vm("VmHWM"), 2)}), flush=True)
         last.update(step=step, t=now)
 
-    audit(path, config=replace(AuditConfig(), backtest=backtest), progress=say)
+    # The engine and thread options of --audit-args apply here too (other options do not).
+    kw = {}
+    for flag, key, conv in (("--engine", "engine", str), ("--threads", "threads", int)):
+        if flag in AUDIT_ARGS:
+            kw[key] = conv(AUDIT_ARGS[AUDIT_ARGS.index(flag) + 1])
+    audit(path, config=replace(AuditConfig(), backtest=backtest, **kw), progress=say)
     say("done")
 
 
 def stage_split(path: Path, args, *, backtest: bool) -> str:
     """Seconds and memory per pipeline step for one audit (reports not written)."""
     run = run_child([sys.executable, str(Path(__file__).resolve()), "--stage-child",
-                     str(path)] + (["--backtest"] if backtest else []), timeout=args.timeout)
+                     str(path), "--audit-args=" + shlex.join(AUDIT_ARGS)]
+                    + (["--backtest"] if backtest else []), timeout=args.timeout)
     lines = [f"  steps of the audit{' with backtest' if backtest else ''} "
              f"({run.seconds:.1f} s, peak {run.peak_rss_gib:.2f} GiB):"]
     for raw in run.stdout.splitlines():
