@@ -732,7 +732,8 @@ def _inputs(r: AuditResult) -> _Html:
             maps.append((label, field, col, "detected" if field in det.detected else "given"))
     run = r.run
     facts = [("Tool version", run.tool_version), ("Started (UTC)", run.started_utc),
-             ("Duration", f"{run.seconds:.1f} s"), ("Seed", run.seed), ("As of", run.as_of),
+             ("Duration", f"{run.seconds:.1f} s"), ("Engine", run.engine), ("Seed", run.seed),
+             ("As of", run.as_of),
              ("Confidence", f"{run.config.get('confidence', 0.95):.0%}"),
              ("Rules file", run.config.get("rules_file") or "shipped rules only")]
     return _section("inputs", "Input fingerprint", "The files this audit read; compare hashes "
