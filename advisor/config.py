@@ -155,7 +155,7 @@ class AuditConfig:
     """Threads the ``duckdb`` engine (and a local Spark) may use; ``None``: every core."""
     engine_memory_gib: float | None = None
     """Memory the ``duckdb`` engine may use before it spills to disk, GiB; ``None``: a
-    quarter of the machine's memory, at most 3 GiB."""
+    quarter of the machine's memory, at most 2 GiB."""
     spark_master: str | None = None
     """Spark master URL (``local[4]``, ``spark://host:7077``, ``yarn``); ``None``: the active
     Spark session if there is one, else ``local[threads]``."""

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from advisor.aggregate.model import Aggregates
+from advisor.aggregate.model import Aggregates, labels_in
 from advisor.errors import InsufficientDataError
 from advisor.validate.model import ValidatedLog
 
@@ -76,8 +76,7 @@ def aggregate(log: ValidatedLog) -> Aggregates:
     np.minimum.at(first_seen, seen_codes, secs)
     item_first[:n_seen] = first_seen
 
-    implausible = np.isin(np.asarray(user_labels, dtype=object).astype(str),
-                          np.asarray(log.implausible_users, dtype=str))
+    implausible = labels_in(np.asarray(user_labels, dtype=object), log.implausible_users)
 
     all_secs = epoch_seconds(ev["ts"]).to_numpy(dtype=np.int64)
     weekly = _weekly(all_secs, secs, user_codes, seen_codes, user_first, first_seen)
