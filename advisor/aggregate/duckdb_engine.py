@@ -35,12 +35,20 @@ import numpy as np
 import pandas as pd
 
 from advisor.aggregate import _sql_validate as sv
+from advisor.aggregate._engine_common import (
+    check_enough,
+    duplicate_issue,
+    quarantine_issues,
+    renumber,
+    unmapped_issue,
+    weekly_frame,
+)
 from advisor.aggregate._sql_input import SourceFile, open_sources, raw_rows
 from advisor.aggregate.model import Aggregates, labels_in
-from advisor.aggregate.pandas_engine import _WEEK, week_start
+from advisor.aggregate.pandas_engine import _WEEK
 from advisor.aggregate.summary import EventSummary
 from advisor.config import AuditConfig
-from advisor.errors import EngineUnsupportedError, InsufficientDataError
+from advisor.errors import EngineUnsupportedError
 from advisor.load.model import LOG_FIELDS, ColumnDetection, InputFile, RawCatalog
 from advisor.validate.anomalies import (
     MIN_USERS_FOR_QUANTILE,
@@ -48,7 +56,7 @@ from advisor.validate.anomalies import (
     RowLocator,
     issues_from_daily,
 )
-from advisor.validate.checks import QUARANTINE_REASONS, _row_issues, build_catalog
+from advisor.validate.checks import QUARANTINE_REASONS, build_catalog
 from advisor.validate.model import QualityIssue, QualityReport, ValidatedLog
 from advisor.validate.timestamps import ParsedTimestamps, resolve_as_of
 
@@ -65,6 +73,10 @@ _MONDAY_SHIFT = 3 * 86400
 #: ``engine_memory_gib`` to give DuckDB more on a large machine).
 MEMORY_SHARE = 0.25
 MEMORY_CAP = 2 << 30
+
+
+#: DuckDB's memory while the pairs stream out (the largest result, held in Python).
+_PAIRS_MEMORY = 512 << 20
 
 
 def memory_limit_bytes(share: float = MEMORY_SHARE, cap: int = MEMORY_CAP) -> int:
@@ -97,21 +109,6 @@ def _connect(threads: int | None, temp_dir: str, memory_gib: float | None = None
 
 def _memory_bytes(memory_gib: float | None) -> int:
     return memory_limit_bytes() if memory_gib is None else int(memory_gib * (1 << 30))
-
-
-def _renumber(codes: np.ndarray) -> np.ndarray:
-    """Lookup table: dictionary code -> position in the sorted ``codes`` (int32)."""
-    lut = np.full(int(codes.max()) + 1 if codes.size else 0, -1, dtype=np.int32)
-    lut[codes] = np.arange(codes.size, dtype=np.int32)
-    return lut
-
-
-def _count(n: int, noun: str) -> str:
-    return f"{n:,} {noun}{'' if n == 1 else 's'}"
-
-
-def _where(file: str | None, line: int | None) -> str:
-    return f"first at {file} line {line}" if file is not None else "no row to point at"
 
 
 class DuckDBEngine:
@@ -287,14 +284,7 @@ class DuckDBEngine:
                                   catalog.file.path if catalog is not None else None)
         if dups:
             file, line = self._where_pos(sv.first_duplicate(con))
-            issues.append(QualityIssue(
-                code="duplicate_event", count=dups, unit="rows", severity="dropped",
-                first_file=file, first_line=line,
-                message=(f"{_count(dups, 'row')} repeating an earlier event exactly "
-                         f"(same user, item, time, event type, value and session; "
-                         f"{_where(file, line)}); the "
-                         "first copy is kept. A double export or a retrying logger is the usual "
-                         "cause; check the export if there are many.")))
+            issues.append(duplicate_issue(dups, file, line))
         unmapped = self._unmapped_issue()
         if unmapped is not None:
             issues.append(unmapped)
@@ -325,18 +315,7 @@ class DuckDBEngine:
     def _row_issues(self, q: pd.DataFrame, qrows: pd.DataFrame, reason: np.ndarray,
                     as_of: pd.Timestamp, cat_src: str | None) -> list[QualityIssue]:
         """The quarantine issues, by the in-memory path's own message code."""
-        if len(q) == 0:
-            return []
-        rules = self._rules
-        r = q["r"].to_numpy(dtype=np.int64)
-        rule = {"kind": rules["kind"].to_numpy(dtype=object)[r],
-                "lo": rules["lo"].to_numpy(dtype=float)[r],
-                "hi": rules["hi"].to_numpy(dtype=float)[r],
-                "mapped": rules["mapped"].to_numpy(dtype=bool)[r]}
-        typed = pd.DataFrame({"item": q["item"].astype("str"), "event": q["event"].astype("str"),
-                              "value": q["value"].astype(np.float64)})
-        none = np.zeros(len(q), dtype=bool)
-        return _row_issues(qrows, reason, none, rule, none, typed, as_of, self._config, cat_src)
+        return quarantine_issues(q, qrows, reason, self._rules, as_of, self._config, cat_src)
 
     def _unmapped_issue(self) -> QualityIssue | None:
         if "event" not in self.columns.mapping:
@@ -347,49 +326,18 @@ class DuckDBEngine:
             ORDER BY c DESC, first""")
         if per.empty:
             return None
-        total = int(per["c"].sum())
-        shown = ", ".join(f"{t!r} ({_count(int(c), 'row')})"
-                          for t, c in zip(per["event"][:10], per["c"][:10]))
-        more = f" and {len(per) - 10} more" if len(per) > 10 else ""
-        treat = ("count as interactions with weight 1" if self._config.unmapped_events_count
-                 else "do not count as interactions")
         file, line = self._where_pos(int(per["first"].min()))
-        return QualityIssue(
-            code="unmapped_event_type", count=total, unit="rows",
-            severity="flagged", first_file=file, first_line=line,
-            message=(f"{_count(len(per), 'event type')} with no rule: {shown}{more}; they {treat} "
-                     f"({_where(file, line)}). Add [events.<type>] with counts and weight to the "
-                     "config file to say how each is treated."))
+        return unmapped_issue(list(per["event"]), per["c"].to_numpy(), file, line,
+                              self._config)
 
     def _check_enough(self, n_rows: int, rows_used: int, qrows: pd.DataFrame,
                       reason: np.ndarray) -> None:
-        if n_rows == 0:
-            raise InsufficientDataError("the log has no rows; nothing to audit.")
-        if rows_used == 0:
-            parts = []
-            for i, code in enumerate(QUARANTINE_REASONS, start=1):
-                hits = np.flatnonzero(reason == i)
-                if hits.size:
-                    file = str(qrows["_source"].iat[hits[0]])
-                    line = int(qrows["_line"].iat[hits[0]])
-                    parts.append(f"{code} {hits.size:,} ({_where(file, line)})")
-            cols = ", ".join(f"{k}={v!r}" for k, v in self.columns.mapping.items())
-            raise InsufficientDataError(
-                f"every one of the {n_rows:,} rows read was set aside: {'; '.join(parts)}. Fix "
-                f"those problems in the input, or check the column mapping ({cols}) and name "
-                "the right columns with the --user-col/--item-col/--ts-col options or "
-                "[columns]."
-            )
-        counted = self._con.execute("SELECT count(*) FROM adv_ev JOIN adv_rules USING (r) "
-                                    "WHERE counts").fetchall()[0][0]
-        if counted == 0:
-            per = self._event_types()
-            shown = ", ".join(f"{t!r} {c:,}" for t, c in list(per.items())[:10])
-            raise InsufficientDataError(
-                f"none of the {rows_used:,} events kept counts as an interaction (event types: "
-                f"{shown}). Mark the type that records use (a play, a view, a purchase) with "
-                "counts = true under [events.<type>] in the config file."
-            )
+        def counted() -> int:
+            return self._con.execute("SELECT count(*) FROM adv_ev JOIN adv_rules USING (r) "
+                                     "WHERE counts").fetchall()[0][0]
+
+        check_enough(n_rows, rows_used, qrows, reason, counted, self._event_types,
+                     self.columns.mapping)
 
     def _event_types(self) -> dict[str, int]:
         per = self._df("SELECT ru.event, count(*) AS c, min(e.pos) AS first FROM adv_ev e "
@@ -538,7 +486,7 @@ class DuckDBEngine:
         all_events = con.execute("SELECT count(*) FROM adv_ev").fetchall()[0][0]
         weekly = self._weekly(user_first, first_seen)
         # The largest result last, so that it is not held while DuckDB works on the others.
-        pairs = self._pairs(_renumber(ucodes), _renumber(icodes))
+        pairs = self._pairs(renumber(ucodes), renumber(icodes))
         pu, pi = pairs["user_idx"].to_numpy(), pairs["item_idx"].to_numpy()
         user_items = np.bincount(pu, minlength=n_users).astype(np.int64)
         item_users = np.bincount(pi, minlength=n_items).astype(np.int64)
@@ -563,29 +511,35 @@ class DuckDBEngine:
         )
 
     def _pairs(self, user_lut: np.ndarray, item_lut: np.ndarray) -> pd.DataFrame:
-        """``Aggregates.pairs``, streamed out of DuckDB in batches straight into numpy
-        columns: peak memory is the finished frame plus one column, not the frame twice (an
-        Arrow table and its pandas copy)."""
+        """``Aggregates.pairs``, streamed out of DuckDB in batches into preallocated numpy
+        columns: peak memory is the finished frame plus one batch, not the frame twice (an
+        Arrow table and its pandas copy). DuckDB's own memory is lowered first, so that
+        the buffers it no longer needs go to disk rather than sit beside the frame."""
+        con = self._con
+        limit = min(_PAIRS_MEMORY, _memory_bytes(self._config.engine_memory_gib))
+        con.execute(f"SET memory_limit = '{limit >> 20}MB'")
+        n = con.execute("SELECT count(*) FROM (SELECT 1 FROM adv_cev GROUP BY u, i)"
+                        ).fetchall()[0][0]
         dtypes = {"user_idx": np.int32, "item_idx": np.int32, "first_ts": np.int64,
                   "last_ts": np.int64, "events": np.int32, "weight": np.float64}
-        chunks: dict[str, list[np.ndarray]] = {c: [] for c in dtypes}
-        reader = self._con.sql("""
+        out = {name: np.empty(n, dtype=dtype) for name, dtype in dtypes.items()}
+        reader = con.sql("""
             SELECT u AS user_idx, i AS item_idx, min(sec) AS first_ts, max(sec) AS last_ts,
                    count(*)::INTEGER AS events, sum(w) AS weight
             FROM adv_cev GROUP BY u, i ORDER BY u, i""").to_arrow_reader(1 << 20)
+        at = 0
         for batch in reader:
+            size = batch.num_rows
             for name, col in zip(batch.schema.names, batch.columns):
                 values = col.to_numpy(zero_copy_only=False)
                 if name == "user_idx":
                     values = user_lut[values]
                 elif name == "item_idx":
                     values = item_lut[values]
-                chunks[name].append(values.astype(dtypes[name], copy=False))
-        out = {}
-        for name, dtype in dtypes.items():
-            parts = chunks.pop(name)
-            out[name] = np.concatenate(parts) if parts else np.zeros(0, dtype)
-            del parts
+                out[name][at:at + size] = values
+            at += size
+        if at != n:
+            raise RuntimeError(f"internal: {at} pairs streamed, {n} counted")
         return pd.DataFrame(out, copy=False)
 
     def _weekly(self, user_first: np.ndarray, item_first: np.ndarray) -> pd.DataFrame:
@@ -600,26 +554,9 @@ class DuckDBEngine:
             SELECT a.w, count(*) AS active, count(b.u) AS returning FROM a
             LEFT JOIN a b ON b.u = a.u AND b.w = a.w - {_WEEK} GROUP BY a.w""")
         inter = self._df(f"SELECT {wk('sec')} AS w, count(*) AS c FROM adv_cev GROUP BY ALL")
-        w_all = every["w"].to_numpy(dtype=np.int64)
-        weeks = np.arange(w_all.min(), w_all.max() + 1, _WEEK)
-        n = weeks.size
-
-        def spread(w, c) -> np.ndarray:
-            out = np.zeros(n, dtype=np.int64)
-            out[(np.asarray(w, dtype=np.int64) - weeks[0]) // _WEEK] = np.asarray(c)
-            return out
-
-        new_users = np.bincount((week_start(user_first) - weeks[0]) // _WEEK, minlength=n)
-        new_items = np.bincount((week_start(item_first) - weeks[0]) // _WEEK, minlength=n)
-        return pd.DataFrame({
-            "week": pd.to_datetime(weeks, unit="s", utc=True).date,
-            "events": spread(every["w"], every["c"]),
-            "interactions": spread(inter["w"], inter["c"]),
-            "active_users": spread(counted["w"], counted["active"]),
-            "returning_users": spread(counted["w"], counted["returning"]),
-            "new_users": new_users.astype(np.int64),
-            "new_items": new_items.astype(np.int64),
-        })
+        return weekly_frame(every["w"], every["c"], inter.set_index("w")["c"].reindex(
+            every["w"], fill_value=0).to_numpy(), counted["w"], counted["active"],
+            counted["returning"], user_first, item_first)
 
     def summary(self) -> EventSummary:
         """The :class:`EventSummary` (call after :meth:`aggregate`)."""

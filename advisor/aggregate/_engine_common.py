@@ -1,0 +1,144 @@
+"""Pure Python shared by the out-of-core engines (DuckDB, Spark): issue messages, the
+"nothing left to audit" checks, the weekly frame and id numbering.
+
+The engines differ only in how they count; every message and every frame the later stages
+read is built here (or in ``advisor.validate``), so the engines cannot drift apart in
+wording or layout.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+
+import numpy as np
+import pandas as pd
+
+from advisor.aggregate.pandas_engine import _WEEK, week_start
+from advisor.config import AuditConfig
+from advisor.errors import InsufficientDataError
+from advisor.validate.checks import QUARANTINE_REASONS, _row_issues
+from advisor.validate.model import QualityIssue
+
+__all__ = ["check_enough", "count", "duplicate_issue", "quarantine_issues", "renumber",
+           "unmapped_issue", "weekly_frame", "where"]
+
+
+def renumber(codes: np.ndarray) -> np.ndarray:
+    """Lookup table: dictionary code -> position in the sorted ``codes`` (int32)."""
+    lut = np.full(int(codes.max()) + 1 if codes.size else 0, -1, dtype=np.int32)
+    lut[codes] = np.arange(codes.size, dtype=np.int32)
+    return lut
+
+
+def count(n: int, noun: str) -> str:
+    """``"1 row"``, ``"3 rows"``."""
+    return f"{n:,} {noun}{'' if n == 1 else 's'}"
+
+
+def where(file: str | None, line: int | None) -> str:
+    """Where an issue is first seen, for its message."""
+    return f"first at {file} line {line}" if file is not None else "no row to point at"
+
+
+def quarantine_issues(q: pd.DataFrame, qrows: pd.DataFrame, reason: np.ndarray,
+                       rules: pd.DataFrame, as_of: pd.Timestamp, config: AuditConfig,
+                       cat_src: str | None) -> list[QualityIssue]:
+    """The quarantine issues, by the in-memory path's own message code."""
+    if len(q) == 0:
+        return []
+    r = q["r"].to_numpy(dtype=np.int64)
+    rule = {"kind": rules["kind"].to_numpy(dtype=object)[r],
+            "lo": rules["lo"].to_numpy(dtype=float)[r],
+            "hi": rules["hi"].to_numpy(dtype=float)[r],
+            "mapped": rules["mapped"].to_numpy(dtype=bool)[r]}
+    typed = pd.DataFrame({"item": q["item"].astype("str"), "event": q["event"].astype("str"),
+                          "value": q["value"].astype(np.float64)})
+    none = np.zeros(len(q), dtype=bool)
+    return _row_issues(qrows, reason, none, rule, none, typed, as_of, config, cat_src)
+
+
+def duplicate_issue(dups: int, file: str, line: int) -> QualityIssue:
+    """The ``duplicate_event`` issue (exact repeats, first copy kept)."""
+    return QualityIssue(
+        code="duplicate_event", count=dups, unit="rows", severity="dropped",
+        first_file=file, first_line=line,
+        message=(f"{count(dups, 'row')} repeating an earlier event exactly "
+                 f"(same user, item, time, event type, value and session; "
+                 f"{where(file, line)}); the "
+                 "first copy is kept. A double export or a retrying logger is the usual "
+                 "cause; check the export if there are many."))
+
+
+def unmapped_issue(names: list, counts: np.ndarray, file: str, line: int,
+                    config: AuditConfig) -> QualityIssue:
+    """The ``unmapped_event_type`` issue from the event types with no rule (most rows
+    first) and their row counts."""
+    total = int(counts.sum())
+    shown = ", ".join(f"{t!r} ({count(int(c), 'row')})"
+                      for t, c in zip(names[:10], counts[:10]))
+    more = f" and {len(names) - 10} more" if len(names) > 10 else ""
+    treat = ("count as interactions with weight 1" if config.unmapped_events_count
+             else "do not count as interactions")
+    return QualityIssue(
+        code="unmapped_event_type", count=total, unit="rows",
+        severity="flagged", first_file=file, first_line=line,
+        message=(f"{count(len(names), 'event type')} with no rule: {shown}{more}; they {treat} "
+                 f"({where(file, line)}). Add [events.<type>] with counts and weight to the "
+                 "config file to say how each is treated."))
+
+
+def check_enough(n_rows: int, rows_used: int, qrows: pd.DataFrame, reason: np.ndarray,
+                 counted: Callable[[], int], event_types: Callable[[], dict[str, int]],
+                 mapping: dict[str, str]) -> None:
+    """Raise :class:`InsufficientDataError` when nothing is left to audit (no rows, every
+    row set aside, or no kept event that counts); ``counted`` and ``event_types`` are asked
+    only when needed (each is a query on a large log)."""
+    if n_rows == 0:
+        raise InsufficientDataError("the log has no rows; nothing to audit.")
+    if rows_used == 0:
+        parts = []
+        for i, code in enumerate(QUARANTINE_REASONS, start=1):
+            hits = np.flatnonzero(reason == i)
+            if hits.size:
+                file = str(qrows["_source"].iat[hits[0]])
+                line = int(qrows["_line"].iat[hits[0]])
+                parts.append(f"{code} {hits.size:,} ({where(file, line)})")
+        cols = ", ".join(f"{k}={v!r}" for k, v in mapping.items())
+        raise InsufficientDataError(
+            f"every one of the {n_rows:,} rows read was set aside: {'; '.join(parts)}. Fix "
+            f"those problems in the input, or check the column mapping ({cols}) and name "
+            "the right columns with the --user-col/--item-col/--ts-col options or "
+            "[columns]."
+        )
+    if counted() == 0:
+        shown = ", ".join(f"{t!r} {c:,}" for t, c in list(event_types().items())[:10])
+        raise InsufficientDataError(
+            f"none of the {rows_used:,} events kept counts as an interaction (event types: "
+            f"{shown}). Mark the type that records use (a play, a view, a purchase) with "
+            "counts = true under [events.<type>] in the config file."
+        )
+
+
+def weekly_frame(w_every, c_every, c_inter, w_counted, active, returning,
+                  user_first: np.ndarray, item_first: np.ndarray) -> pd.DataFrame:
+    """The weekly frame from per-week counts (weeks as epoch seconds of their Monday)."""
+    w_all = np.asarray(w_every, dtype=np.int64)
+    weeks = np.arange(w_all.min(), w_all.max() + 1, _WEEK)
+    n = weeks.size
+
+    def spread(w, c) -> np.ndarray:
+        out = np.zeros(n, dtype=np.int64)
+        out[(np.asarray(w, dtype=np.int64) - weeks[0]) // _WEEK] = np.asarray(c)
+        return out
+
+    new_users = np.bincount((week_start(user_first) - weeks[0]) // _WEEK, minlength=n)
+    new_items = np.bincount((week_start(item_first) - weeks[0]) // _WEEK, minlength=n)
+    return pd.DataFrame({
+        "week": pd.to_datetime(weeks, unit="s", utc=True).date,
+        "events": spread(w_every, c_every),
+        "interactions": spread(w_every, c_inter),
+        "active_users": spread(w_counted, active),
+        "returning_users": spread(w_counted, returning),
+        "new_users": new_users.astype(np.int64),
+        "new_items": new_items.astype(np.int64),
+    })
