@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import io
 import os
+import re
 import signal
 import sys
 import threading
@@ -149,7 +150,7 @@ def main() -> None:
 def _audit_options(f):
     """Options shared by ``audit`` and ``backfill``."""
     opts = [
-        click.argument("logs", type=click.Path(exists=True, path_type=Path)),
+        click.argument("logs", type=_LogsPath()),
         click.option("--catalog", type=click.Path(exists=True, dir_okay=False, path_type=Path),
                      help="Catalogue file: item id, title, categories, date added, ratings."),
         click.option("--config", "config_file",
@@ -196,6 +197,19 @@ def _audit_options(f):
     for opt in reversed(opts):
         f = opt(f)
     return f
+
+
+class _LogsPath(click.Path):
+    """A local file or folder that must exist, or a URI with a scheme (``s3a://``,
+    ``hdfs://``, ``file://``) that only ``--engine spark`` reads and checks itself."""
+
+    def __init__(self):
+        super().__init__(exists=True, path_type=Path)
+
+    def convert(self, value, param, ctx):
+        if isinstance(value, str) and re.match(r"^[A-Za-z][A-Za-z0-9+.-]*://", value):
+            return value
+        return super().convert(value, param, ctx)
 
 
 def _make_config(config_file, rules_file, user_col, item_col, time_col, event_col, value_col,

@@ -18,7 +18,7 @@ import pandas as pd
 from advisor import __version__
 from advisor.aggregate import Aggregates, aggregate
 from advisor.config import AuditConfig
-from advisor.errors import AdvisorError, ConfigError, EngineUnsupportedError
+from advisor.errors import AdvisorError, ConfigError, EngineUnsupportedError, LogFormatError
 from advisor.load import read_catalog, read_logs
 from advisor.load.model import ColumnDetection, InputFile
 from advisor.profile.bundle import Profile, build_profile, item_categories
@@ -213,6 +213,12 @@ def _engine_stages(logs, catalog, config: AuditConfig, say, *, engine: str):
     except Exception as exc:
         if engine == "duckdb":
             _raise_for_duckdb(exc)
+        elif type(exc).__module__.split(".")[0] in ("pyspark", "py4j"):
+            first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+            raise LogFormatError(
+                f"Spark stopped while reading or counting the log ({first[:300]}); check that "
+                "the Parquet files are readable from the cluster and not corrupt, or audit a "
+                "local copy with --engine duckdb.") from None
         raise
 
 
@@ -288,10 +294,14 @@ def _user_threshold(metrics: dict) -> tuple[int, str]:
 def _evidence(agg: Aggregates, log, config: AuditConfig, say):
     from advisor.evidence import gather_evidence
 
-    pairs = agg.pairs
+    # The three columns the backtest reads, without copying the pairs table first.
+    cols = {"user_idx": agg.pairs["user_idx"].to_numpy(),
+            "item_idx": agg.pairs["item_idx"].to_numpy(),
+            "ts": agg.pairs["first_ts"].to_numpy()}
     if config.exclude_implausible and agg.implausible.any():
-        pairs = pairs[~agg.implausible[pairs["user_idx"].to_numpy()]]
-    pairs = pairs[["user_idx", "item_idx", "first_ts"]].rename(columns={"first_ts": "ts"})
+        keep = ~agg.implausible[cols["user_idx"]]
+        cols = {k: v[keep] for k, v in cols.items()}
+    pairs = pd.DataFrame(cols, copy=False)
     cats = None
     if log.catalog is not None and log.catalog.has_categories:
         first = [c[0] if c else None for c in item_categories(agg, log)]
