@@ -356,7 +356,7 @@ def test_block_by_block_scan_gives_the_single_product_result(fdr, monkeypatch):
     kw = dict(false_discovery_control=fdr, exposed_users=np.full(60, 400.0), top_n=15)
     whole = cooccurrence_profile(x, **kw)
     monkeypatch.setattr(cooc, "_BLOCK_PRODUCTS", 200)
-    monkeypatch.setattr(cooc, "_KEPT_PAIRS", 40)
+    monkeypatch.setattr(cooc, "_KEPT_PAIRS", 3)  # forces the second scan
     blocked = cooccurrence_profile(x, **kw)
     assert len(cooc._BlockScan(x.astype(np.int32), whole.support, np.zeros(60),
                                confidence=0.95, min_pair_users=2).edges) > 10
@@ -366,3 +366,14 @@ def test_block_by_block_scan_gives_the_single_product_result(fdr, monkeypatch):
     assert blocked.top_pairs == whole.top_pairs and len(whole.top_pairs) == 15
     assert blocked.to_dict() == whole.to_dict()
     assert whole.pairs_significant > 0
+    if fdr:  # the reference: significant_pairs over every scored pair at once
+        from advisor.profile.cooccurrence import significant_pairs
+
+        c = dense.astype(np.int64).T @ dense.astype(np.int64)
+        support = np.diag(c)
+        y, xs = np.nonzero((c >= 2) & ~np.eye(60, dtype=bool))
+        active = int((support > 0).sum())
+        sig = significant_pairs(c[y, xs], support[y], support[xs] / 400.0,
+                                tests=active * (active - 1))
+        np.testing.assert_array_equal(whole.significant_neighbours,
+                                      np.bincount(y[sig], minlength=60))

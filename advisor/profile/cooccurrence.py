@@ -246,9 +246,10 @@ def _pvalues(both: np.ndarray, n_y: np.ndarray, base: np.ndarray) -> np.ndarray:
 def _bh_cutoff(small: np.ndarray, *, alpha: float, tests: int) -> float:
     """Benjamini-Hochberg step-up cutoff: pairs with ``p <= cutoff`` are called.
 
-    ``small`` holds every p-value at or below ``alpha`` among ``tests`` hypotheses (larger
-    ones can never pass, as the step-up threshold ``alpha k / tests`` never exceeds
-    ``alpha``, and they rank after these). -inf when nothing passes. Equal p-values pass or
+    ``small`` holds every p-value at or below some bound among ``tests`` hypotheses, where
+    no larger p-value can pass (for instance ``alpha``, which the step-up threshold
+    ``alpha k / tests`` never exceeds; or ``alpha n / tests`` when at most ``n`` p-values
+    are below 1); the larger ones rank after these. -inf when nothing passes. Equal p-values pass or
     fail together: if p_(j) = p_(k) with j > k and p_(k) passes, so does p_(j).
     """
     ranked = np.sort(np.asarray(small, dtype=np.float64))
@@ -256,11 +257,11 @@ def _bh_cutoff(small: np.ndarray, *, alpha: float, tests: int) -> float:
     return float(ranked[passing[-1]]) if passing.size else -math.inf
 
 
-_BLOCK_PRODUCTS = 5_000_000
+_BLOCK_PRODUCTS = 2_000_000
 """Bound on the user-level products (so on the pairs) one block of items may produce; the
-per-pair arrays of a block stay under about half a gigabyte."""
+per-pair arrays of a block stay under about 300 MB."""
 
-_KEPT_PAIRS = 30_000_000
+_KEPT_PAIRS = 20_000_000
 """Pairs with ``p <= alpha`` kept between the two steps of the false-discovery control
 (28 bytes each); beyond it the blocks are computed a second time instead."""
 
@@ -309,6 +310,8 @@ class _BlockScan:
         self.pvalues = pvalues
         history = np.diff(x.indptr).astype(np.float64)
         cost = np.cumsum(self.xt @ history)
+        self.products = float(cost[-1]) if cost.size else 0.0
+        """User-level products of the whole scan: an upper bound on the pairs it scores."""
         cuts = np.searchsorted(cost, np.arange(_BLOCK_PRODUCTS, cost[-1], _BLOCK_PRODUCTS)
                                ) if cost.size and cost[-1] > _BLOCK_PRODUCTS else []
         self.edges = np.unique(np.concatenate([[0], cuts, [x.shape[1]]])).astype(np.int64)
@@ -442,11 +445,11 @@ def cooccurrence_profile(
 
     Cost: computing ``C`` takes time of order ``sum over users of h_u^2``, ``h_u`` being
     the user's capped history length. ``C`` is computed and scored a block of conditioning
-    items at a time (at most five million pairs per block), so memory is that of one block plus
+    items at a time (at most two million pairs per block), so memory is that of one block plus
     the per-item results, not of ``C``; with false-discovery control the pairs with
-    ``p <= (1 - confidence) / 2`` are kept (28 bytes each) until the step-up cutoff is
-    known, or, past thirty million of them, the blocks are computed twice. No dense
-    items x items array is ever built.
+    ``p <= alpha * (products / tests)`` (a bound no passing p-value exceeds) are kept
+    (28 bytes each) until the step-up cutoff is known, or, past twenty million of them,
+    the blocks are computed twice. No dense items x items array is ever built.
 
     References
     ----------
@@ -532,17 +535,20 @@ def cooccurrence_profile(
             neighbours += np.bincount(b.y[sig], minlength=n_items)
             top.add(b, sig)
     else:
-        # Benjamini-Hochberg needs every p-value before any pair is called. Only pairs with
-        # p <= alpha can pass (the step-up threshold never exceeds alpha), so those are kept
-        # while they fit the budget and the step-up is run on them; beyond the budget only
-        # their p-values are kept and the blocks are scanned a second time.
+        # Benjamini-Hochberg needs every p-value before any pair is called. Only the small
+        # p-values can pass, so those pairs are kept while they fit the budget and the
+        # step-up is run on them; beyond the budget only their p-values are kept and the
+        # blocks are scanned a second time.
+        # A p-value can pass only if p <= alpha k / tests for some rank k no larger than the
+        # pairs scored, which the products bound from above: larger ones need not be kept.
+        limit = alpha * min(1.0, scan.products / tests)
         kept: list[_Block] = []
         small_p: list[np.ndarray] = []
         n_kept = 0
         for b in scan.blocks():
             pairs_scored += b.y.size
             b.best_into(best_p, best_base)
-            cand = b.pval <= alpha
+            cand = b.pval <= limit
             small_p.append(b.pval[cand])
             n_kept += int(cand.sum())
             if n_kept <= _KEPT_PAIRS:
