@@ -16,11 +16,12 @@ import pandas as pd
 from advisor.aggregate.pandas_engine import _WEEK, week_start
 from advisor.config import AuditConfig
 from advisor.errors import InsufficientDataError
+from advisor.validate.anomalies import MIN_USERS_FOR_QUANTILE, ImplausibleUsers
 from advisor.validate.checks import QUARANTINE_REASONS, _row_issues
-from advisor.validate.model import QualityIssue
+from advisor.validate.model import Catalog, QualityIssue, QualityReport, ValidatedLog
 
-__all__ = ["check_enough", "count", "duplicate_issue", "quarantine_issues", "renumber",
-           "unmapped_issue", "weekly_frame", "where"]
+__all__ = ["check_enough", "count", "duplicate_issue", "finish_validation",
+           "quarantine_issues", "renumber", "unmapped_issue", "weekly_frame", "where"]
 
 
 def renumber(codes: np.ndarray) -> np.ndarray:
@@ -142,3 +143,33 @@ def weekly_frame(w_every, c_every, c_inter, w_counted, active, returning,
         "new_users": new_users.astype(np.int64),
         "new_items": new_items.astype(np.int64),
     })
+
+
+def finish_validation(*, bots: ImplausibleUsers,
+                      anomalies: tuple[list[QualityIssue], list[str]],
+                      issues: list[QualityIssue], notes: list[str],
+                      catalog_issues, n_rows: int, rows_used: int,
+                      quarantine: pd.DataFrame, duplicates: int, timestamp_format: str,
+                      as_of: pd.Timestamp, catalog: Catalog | None,
+                      config: AuditConfig) -> ValidatedLog:
+    """The :class:`ValidatedLog` of an out-of-core engine (``events = None``) from what it
+    counted: notes and issues in the in-memory path's order and wording."""
+    if bots.volume_threshold is None:
+        notes.append(
+            f"Only {bots.users_considered:,} users count interactions (fewer than "
+            f"{MIN_USERS_FOR_QUANTILE:,}): the rule 'more than {config.implausible_factor:g} "
+            f"x the {config.implausible_quantile:g} quantile of activity' was skipped, as so "
+            "few users cannot define it; the hourly rule "
+            f"(more than {config.max_events_per_hour} counted events in a clock hour) "
+            "applies.")
+    found, said = anomalies
+    issues.extend(found)
+    notes.extend(said)
+    issues.extend(catalog_issues)
+    issues.sort(key=lambda i: (i.unit != "rows", -i.count))
+    quality = QualityReport(
+        rows_read=n_rows, rows_used=rows_used, rows_quarantined=len(quarantine),
+        duplicates_dropped=duplicates, issues=tuple(issues), timestamp_format=timestamp_format,
+        notes=tuple(notes))
+    return ValidatedLog(events=None, quarantine=quarantine, quality=quality,
+                        implausible_users=bots.users, as_of=as_of, catalog=catalog)

@@ -8,8 +8,9 @@ Inputs are Parquet only: a local file or folder, or a URI Spark reads itself (``
 ``hdfs://``, ``file://``). Each file's footer is read first, with pyarrow (a remote footer is
 fetched through Hadoop's file system and handed to pyarrow), so the columns are detected and
 typed exactly as the in-memory reader detects them. Column types whose reading in Spark could
-differ from the embedded engines' are refused with a :class:`ConfigError` pointing at
-``--engine duckdb``; nothing is read differently in silence:
+differ from the embedded engines' are refused with an :class:`EngineUnsupportedError` (a
+:class:`ConfigError`) pointing at ``--engine duckdb``; nothing is read differently in
+silence:
 
 * integers, booleans and text become the same text (Spark's cast writes integers and
   booleans as pyarrow does);
@@ -41,7 +42,7 @@ from advisor.aggregate._sql_input import _fingerprint
 from advisor.aggregate._sql_validate import _ISO, _LO_DAY, _LO_US, _HI_DAY, _HI_US, _WHOLE
 from advisor.aggregate._sql_validate import _EPOCH_BUCKETS, _WHITESPACE
 from advisor.config import LogColumns
-from advisor.errors import ConfigError, LogFormatError
+from advisor.errors import ConfigError, EngineUnsupportedError, LogFormatError
 from advisor.load.columns import detect_log_columns
 from advisor.load.model import LINE_COL, SOURCE_COL, ColumnDetection, InputFile
 from advisor.load.readers import (
@@ -168,10 +169,10 @@ class ParquetInput:
     info: InputFile
 
 
-def _refuse(source: str, what: str) -> ConfigError:
-    return ConfigError(
+def _refuse(source: str, what: str) -> EngineUnsupportedError:
+    return EngineUnsupportedError(
         f"{source}: --engine spark does not read {what}; use --engine duckdb (or --engine "
-        "pandas) for this input."
+        "pandas) for this input.", reason=f"{source}: {what}"
     )
 
 
@@ -330,9 +331,10 @@ def open_inputs(spark, logs, columns: LogColumns | None
     for _, _, _, name, _ in entries:
         fmt, compressed = detect_format(name) or ("csv", False)
         if fmt != "parquet":
-            raise ConfigError(
+            raise EngineUnsupportedError(
                 f"{name}: --engine spark reads Parquet only, and this is {fmt.upper()}; use "
-                "--engine duckdb or --engine pandas, or convert the log to Parquet.")
+                "--engine duckdb or --engine pandas, or convert the log to Parquet.",
+                reason=f"{name}: {fmt.upper()}, not Parquet")
         if compressed:
             raise _refuse(name, "gzip-compressed Parquet")
     digests = {}

@@ -38,6 +38,7 @@ from advisor.aggregate import _sql_validate as sv
 from advisor.aggregate._engine_common import (
     check_enough,
     duplicate_issue,
+    finish_validation,
     quarantine_issues,
     renumber,
     unmapped_issue,
@@ -57,7 +58,7 @@ from advisor.validate.anomalies import (
     issues_from_daily,
 )
 from advisor.validate.checks import QUARANTINE_REASONS, build_catalog
-from advisor.validate.model import QualityIssue, QualityReport, ValidatedLog
+from advisor.validate.model import QualityIssue, ValidatedLog
 from advisor.validate.timestamps import ParsedTimestamps, resolve_as_of
 
 __all__ = ["DuckDBEngine", "memory_limit_bytes"]
@@ -75,8 +76,10 @@ MEMORY_SHARE = 0.25
 MEMORY_CAP = 2 << 30
 
 
-#: DuckDB's memory while the pairs stream out (the largest result, held in Python).
+#: DuckDB's memory while the pairs stream out of a large log (the largest result, held in
+#: Python), and the counted events above which a log counts as large.
 _PAIRS_MEMORY = 512 << 20
+_PREALLOCATE_EVENTS = 30_000_000
 
 
 def memory_limit_bytes(share: float = MEMORY_SHARE, cap: int = MEMORY_CAP) -> int:
@@ -292,25 +295,11 @@ class DuckDBEngine:
         con.execute("DROP TABLE adv_rows")  # every later step reads the events
 
         bots = self._implausible()
-        if bots.volume_threshold is None:
-            notes.append(
-                f"Only {bots.users_considered:,} users count interactions (fewer than "
-                f"{MIN_USERS_FOR_QUANTILE:,}): the rule 'more than {config.implausible_factor:g} "
-                f"x the {config.implausible_quantile:g} quantile of activity' was skipped, as so "
-                "few users cannot define it; the hourly rule "
-                f"(more than {config.max_events_per_hour} counted events in a clock hour) "
-                "applies.")
-        found, said = self._anomaly_issues(bots, as_of)
-        issues.extend(found)
-        notes.extend(said)
-        issues.extend(cat_issues)
-        issues.sort(key=lambda i: (i.unit != "rows", -i.count))
-        quality = QualityReport(
-            rows_read=n_rows, rows_used=rows_used, rows_quarantined=len(quarantine),
-            duplicates_dropped=dups, issues=tuple(issues), timestamp_format=parsed.format,
-            notes=tuple(notes))
-        return ValidatedLog(events=None, quarantine=quarantine, quality=quality,
-                            implausible_users=bots.users, as_of=as_of, catalog=cat_obj)
+        return finish_validation(
+            bots=bots, anomalies=self._anomaly_issues(bots, as_of), issues=issues,
+            notes=notes, catalog_issues=cat_issues, n_rows=n_rows, rows_used=rows_used,
+            quarantine=quarantine, duplicates=dups, timestamp_format=parsed.format,
+            as_of=as_of, catalog=cat_obj, config=config)
 
     def _row_issues(self, q: pd.DataFrame, qrows: pd.DataFrame, reason: np.ndarray,
                     as_of: pd.Timestamp, cat_src: str | None) -> list[QualityIssue]:
@@ -486,7 +475,7 @@ class DuckDBEngine:
         all_events = con.execute("SELECT count(*) FROM adv_ev").fetchall()[0][0]
         weekly = self._weekly(user_first, first_seen)
         # The largest result last, so that it is not held while DuckDB works on the others.
-        pairs = self._pairs(renumber(ucodes), renumber(icodes))
+        pairs = self._pairs(renumber(ucodes), renumber(icodes), int(totals[0]))
         pu, pi = pairs["user_idx"].to_numpy(), pairs["item_idx"].to_numpy()
         user_items = np.bincount(pu, minlength=n_users).astype(np.int64)
         item_users = np.bincount(pi, minlength=n_items).astype(np.int64)
@@ -510,19 +499,26 @@ class DuckDBEngine:
             last_ts=int(totals[2]),
         )
 
-    def _pairs(self, user_lut: np.ndarray, item_lut: np.ndarray) -> pd.DataFrame:
-        """``Aggregates.pairs``, streamed out of DuckDB in batches into preallocated numpy
-        columns: peak memory is the finished frame plus one batch, not the frame twice (an
-        Arrow table and its pandas copy). DuckDB's own memory is lowered first, so that
-        the buffers it no longer needs go to disk rather than sit beside the frame."""
+    def _pairs(self, user_lut: np.ndarray, item_lut: np.ndarray, events: int
+               ) -> pd.DataFrame:
+        """``Aggregates.pairs``, streamed out of DuckDB in batches of numpy columns, never
+        as an Arrow table plus its pandas copy. On a large log (more than
+        ``_PREALLOCATE_EVENTS`` counted events) the pairs are counted first and written into
+        preallocated columns, so the peak is the frame plus one batch, and DuckDB's own memory
+        is lowered first, so that the buffers it no longer needs go to disk rather than sit
+        beside the frame; on a smaller log the batches are joined at the end (one column
+        extra at the peak), which saves the counting query."""
         con = self._con
-        limit = min(_PAIRS_MEMORY, _memory_bytes(self._config.engine_memory_gib))
-        con.execute(f"SET memory_limit = '{limit >> 20}MB'")
-        n = con.execute("SELECT count(*) FROM (SELECT 1 FROM adv_cev GROUP BY u, i)"
-                        ).fetchall()[0][0]
+        large = events > _PREALLOCATE_EVENTS
+        if large:
+            limit = min(_PAIRS_MEMORY, _memory_bytes(self._config.engine_memory_gib))
+            con.execute(f"SET memory_limit = '{limit >> 20}MB'")
         dtypes = {"user_idx": np.int32, "item_idx": np.int32, "first_ts": np.int64,
                   "last_ts": np.int64, "events": np.int32, "weight": np.float64}
-        out = {name: np.empty(n, dtype=dtype) for name, dtype in dtypes.items()}
+        n = (con.execute("SELECT count(*) FROM (SELECT 1 FROM adv_cev GROUP BY u, i)"
+                         ).fetchall()[0][0] if large else None)
+        out = {name: np.empty(n, dtype=dtype) for name, dtype in dtypes.items()} if large \
+            else {name: [] for name in dtypes}
         reader = con.sql("""
             SELECT u AS user_idx, i AS item_idx, min(sec) AS first_ts, max(sec) AS last_ts,
                    count(*)::INTEGER AS events, sum(w) AS weight
@@ -536,10 +532,16 @@ class DuckDBEngine:
                     values = user_lut[values]
                 elif name == "item_idx":
                     values = item_lut[values]
-                out[name][at:at + size] = values
+                if large:
+                    out[name][at:at + size] = values
+                else:
+                    out[name].append(values.astype(dtypes[name], copy=False))
             at += size
-        if at != n:
+        if large and at != n:
             raise RuntimeError(f"internal: {at} pairs streamed, {n} counted")
+        if not large:
+            out = {name: (np.concatenate(parts) if parts else np.zeros(0, dtypes[name]))
+                   for name, parts in out.items()}
         return pd.DataFrame(out, copy=False)
 
     def _weekly(self, user_first: np.ndarray, item_first: np.ndarray) -> pd.DataFrame:

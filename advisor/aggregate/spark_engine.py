@@ -68,6 +68,7 @@ from advisor.aggregate._sql_validate import KIND_NAMES, event_rules, read_odd_ti
 from advisor.aggregate._engine_common import (
     check_enough,
     duplicate_issue,
+    finish_validation,
     quarantine_issues,
     unmapped_issue,
     weekly_frame,
@@ -86,7 +87,7 @@ from advisor.validate.anomalies import (
     issues_from_daily,
 )
 from advisor.validate.checks import QUARANTINE_REASONS, build_catalog
-from advisor.validate.model import QualityIssue, QualityReport, ValidatedLog
+from advisor.validate.model import QualityIssue, ValidatedLog
 from advisor.validate.timestamps import ParsedTimestamps, resolve_as_of
 
 __all__ = ["SparkEngine"]
@@ -477,25 +478,11 @@ class SparkEngine:
         self._drop("adv_rows")  # every later step reads the events
 
         bots = self._implausible()
-        if bots.volume_threshold is None:
-            notes.append(
-                f"Only {bots.users_considered:,} users count interactions (fewer than "
-                f"{MIN_USERS_FOR_QUANTILE:,}): the rule 'more than {config.implausible_factor:g} "
-                f"x the {config.implausible_quantile:g} quantile of activity' was skipped, as so "
-                "few users cannot define it; the hourly rule "
-                f"(more than {config.max_events_per_hour} counted events in a clock hour) "
-                "applies.")
-        found, said = self._anomaly_issues(bots, as_of)
-        issues.extend(found)
-        notes.extend(said)
-        issues.extend(cat_issues)
-        issues.sort(key=lambda i: (i.unit != "rows", -i.count))
-        quality = QualityReport(
-            rows_read=n_rows, rows_used=rows_used, rows_quarantined=len(quarantine),
-            duplicates_dropped=dups, issues=tuple(issues), timestamp_format=parsed.format,
-            notes=tuple(notes))
-        return ValidatedLog(events=None, quarantine=quarantine, quality=quality,
-                            implausible_users=bots.users, as_of=as_of, catalog=cat_obj)
+        return finish_validation(
+            bots=bots, anomalies=self._anomaly_issues(bots, as_of), issues=issues,
+            notes=notes, catalog_issues=cat_issues, n_rows=n_rows, rows_used=rows_used,
+            quarantine=quarantine, duplicates=dups, timestamp_format=parsed.format,
+            as_of=as_of, catalog=cat_obj, config=config)
 
     def _raw_rows(self, fields: list[str], f: np.ndarray, line: np.ndarray) -> pd.DataFrame:
         """The raw text of the quarantined rows, as the in-memory reader would show it."""
