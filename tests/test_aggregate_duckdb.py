@@ -118,8 +118,8 @@ def test_sample_scenario_aggregates_and_quality_are_identical():
 
 
 def test_large_log_path_streams_the_same_pairs(monkeypatch):
-    """The path for large logs (pairs counted first, written into preallocated columns,
-    DuckDB's memory lowered) gives the same aggregates as the in-memory engine."""
+    """The path for large logs (pairs counted first, written into preallocated columns)
+    gives the same aggregates as the in-memory engine."""
     import advisor.aggregate.duckdb_engine as engine
 
     monkeypatch.setattr(engine, "_PREALLOCATE_EVENTS", 0)
