@@ -117,15 +117,6 @@ def test_sample_scenario_aggregates_and_quality_are_identical():
     assert v.quality.duplicates_dropped > 0 and len(v.quarantine) > 0  # planted problems seen
 
 
-def test_large_log_path_streams_the_same_pairs(monkeypatch):
-    """The path for large logs (pairs counted first, written into preallocated columns)
-    gives the same aggregates as the in-memory engine."""
-    import advisor.aggregate.duckdb_engine as engine
-
-    monkeypatch.setattr(engine, "_PREALLOCATE_EVENTS", 0)
-    assert_same(SAMPLE / "events", SAMPLE / "catalog.csv")
-
-
 def test_sample_scenario_replayed_at_a_past_date_gives_the_same_audit():
     """advisor.audit with engine=duckdb reports exactly what engine=pandas reports, here for a
     past week (cut-off rows, catalogue trimmed to the items that existed)."""

@@ -76,9 +76,6 @@ MEMORY_SHARE = 0.25
 MEMORY_CAP = 2 << 30
 
 
-#: Counted events above which the pairs are counted first and streamed into preallocated
-#: columns (a large log: the counting query costs a grouped scan, the saving a column copy).
-_PREALLOCATE_EVENTS = 30_000_000
 
 
 def memory_limit_bytes(share: float = MEMORY_SHARE, cap: int = MEMORY_CAP) -> int:
@@ -500,45 +497,33 @@ class DuckDBEngine:
 
     def _pairs(self, user_lut: np.ndarray, item_lut: np.ndarray, events: int
                ) -> pd.DataFrame:
-        """``Aggregates.pairs``, streamed out of DuckDB in batches of numpy columns, never
-        as an Arrow table plus its pandas copy. On a large log (more than
-        ``_PREALLOCATE_EVENTS`` counted events) the pairs are counted first and written into
-        preallocated columns, so the peak is the frame plus one batch; on a smaller log the
-        batches are joined at the end (one column extra at the peak), which saves the
-        counting query. (Lowering DuckDB's memory for this step was tried: at 100M events
-        its grouped sort failed with 512 MB.)"""
-        con = self._con
-        large = events > _PREALLOCATE_EVENTS
+        """``Aggregates.pairs``, streamed out of DuckDB in batches into numpy columns
+        allocated for ``events`` rows (the counted events, at least the distinct pairs):
+        pages past the last pair are never touched, so they take no memory, and the peak is
+        the frame plus one batch, not an Arrow table plus its pandas copy, nor batches plus
+        their concatenation. (A counting query to size the columns exactly made DuckDB run
+        out of memory at 100M events; lowering its memory for this step did too.)"""
         dtypes = {"user_idx": np.int32, "item_idx": np.int32, "first_ts": np.int64,
                   "last_ts": np.int64, "events": np.int32, "weight": np.float64}
-        n = (con.execute("SELECT count(*) FROM (SELECT 1 FROM adv_cev GROUP BY u, i)"
-                         ).fetchall()[0][0] if large else None)
-        out = {name: np.empty(n, dtype=dtype) for name, dtype in dtypes.items()} if large \
-            else {name: [] for name in dtypes}
-        reader = con.sql("""
+        out = {name: np.empty(events, dtype=dtype) for name, dtype in dtypes.items()}
+        reader = self._con.sql("""
             SELECT u AS user_idx, i AS item_idx, min(sec) AS first_ts, max(sec) AS last_ts,
                    count(*)::INTEGER AS events, sum(w) AS weight
             FROM adv_cev GROUP BY u, i ORDER BY u, i""").to_arrow_reader(1 << 20)
         at = 0
         for batch in reader:
             size = batch.num_rows
+            if at + size > events:
+                raise RuntimeError(f"internal: more pairs than the {events} counted events")
             for name, col in zip(batch.schema.names, batch.columns):
                 values = col.to_numpy(zero_copy_only=False)
                 if name == "user_idx":
                     values = user_lut[values]
                 elif name == "item_idx":
                     values = item_lut[values]
-                if large:
-                    out[name][at:at + size] = values
-                else:
-                    out[name].append(values.astype(dtypes[name], copy=False))
+                out[name][at:at + size] = values
             at += size
-        if large and at != n:
-            raise RuntimeError(f"internal: {at} pairs streamed, {n} counted")
-        if not large:
-            out = {name: (np.concatenate(parts) if parts else np.zeros(0, dtypes[name]))
-                   for name, parts in out.items()}
-        return pd.DataFrame(out, copy=False)
+        return pd.DataFrame({name: col[:at] for name, col in out.items()}, copy=False)
 
     def _weekly(self, user_first: np.ndarray, item_first: np.ndarray) -> pd.DataFrame:
         """As ``pandas_engine._weekly``: weeks over the span of all usable events."""
