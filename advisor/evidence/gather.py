@@ -118,12 +118,15 @@ def sample_users(pairs: pd.DataFrame, max_users: int | None, *,
     >>> n, total, sorted(kept["user_idx"].unique().tolist())
     (2, 3, [0, 1])
     """
-    users = np.unique(pairs["user_idx"].to_numpy(np.int64))
+    u = pairs["user_idx"].to_numpy()
+    # Distinct users from a count per user: no sorted copy of a pairs-long column.
+    users = np.flatnonzero(np.bincount(u)) if u.size else np.zeros(0, dtype=np.int64)
     if max_users is None or users.size <= max_users:
         return pairs, int(users.size), int(users.size)
     chosen = np.sort(rng.choice(users, int(max_users), replace=False))
-    u = pairs["user_idx"].to_numpy(np.int64)
-    keep = np.isin(u, chosen, assume_unique=False)
+    picked = np.zeros(int(users[-1]) + 1, dtype=bool)
+    picked[chosen] = True
+    keep = picked[u]
     out = pairs.loc[keep].copy()
     out["user_idx"] = np.searchsorted(chosen, u[keep])
     return out.reset_index(drop=True), int(chosen.size), int(users.size)
