@@ -6,6 +6,7 @@ This is the library entry point behind ``advisor audit``; a notebook user calls
 
 from __future__ import annotations
 
+import re
 import time
 from dataclasses import asdict, dataclass, replace
 from datetime import datetime, timezone
@@ -133,6 +134,10 @@ def audit(logs: str | Path, *, catalog: str | Path | None = None,
     rules = load_rules(config.rules_file)
 
     engine = config.engine
+    if engine != "spark" and re.match(r"^[A-Za-z][A-Za-z0-9+.-]*://", str(logs)):
+        raise ConfigError(
+            f"{logs}: a URI; only --engine spark reads logs where they live (s3a://, "
+            "hdfs://, file://). Use --engine spark, or copy the files to a local folder.")
     fallback = None
     if engine == "auto":
         try:

@@ -349,6 +349,12 @@ def test_default_engine_is_duckdb_and_falls_back_to_memory_for_what_it_cannot_re
     assert got.metrics == forced.metrics
 
 
+def test_a_uri_is_refused_by_every_engine_but_spark():
+    """Logs given as a URI (s3a://...) point at --engine spark instead of a missing path."""
+    with pytest.raises(ConfigError, match="only --engine spark"):
+        advisor.audit("s3a://bucket/logs", config=AuditConfig(backtest=False))
+
+
 @pytest.mark.parametrize("text", [
     "user,item,ts\na,b,1700000000\n\na,c,1700000001\n",  # a blank line
     'user,item,ts\n"a\nb",b,1700000000\na,c,1700000001\n',  # a line break inside quotes
