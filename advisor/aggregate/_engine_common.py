@@ -16,12 +16,18 @@ import pandas as pd
 from advisor.aggregate.pandas_engine import _WEEK, week_start
 from advisor.config import AuditConfig
 from advisor.errors import InsufficientDataError
-from advisor.validate.anomalies import MIN_USERS_FOR_QUANTILE, ImplausibleUsers
+from advisor.validate.anomalies import (
+    MIN_USERS_FOR_QUANTILE,
+    ImplausibleUsers,
+    RowLocator,
+    issues_from_daily,
+)
 from advisor.validate.checks import QUARANTINE_REASONS, _row_issues
 from advisor.validate.model import Catalog, QualityIssue, QualityReport, ValidatedLog
 
-__all__ = ["check_enough", "count", "duplicate_issue", "finish_validation",
-           "quarantine_issues", "renumber", "unmapped_issue", "weekly_frame", "where"]
+__all__ = ["anomaly_issues", "busiest_first", "check_enough", "count", "duplicate_issue",
+           "finish_validation", "implausible_result", "quarantine_issues", "renumber",
+           "unmapped_issue", "weekly_frame", "where"]
 
 
 def renumber(codes: np.ndarray) -> np.ndarray:
@@ -173,3 +179,49 @@ def finish_validation(*, bots: ImplausibleUsers,
         notes=tuple(notes))
     return ValidatedLog(events=None, quarantine=quarantine, quality=quality,
                         implausible_users=bots.users, as_of=as_of, catalog=catalog)
+
+
+_DAY_NS = 86_400_000_000_000
+
+
+def busiest_first(volume: np.ndarray, rate: np.ndarray, counts: np.ndarray,
+                  first: np.ndarray) -> np.ndarray:
+    """Positions of the flagged users, busiest first; ties in order of first appearance, as
+    ``pandas.factorize`` numbers them on the in-memory path."""
+    flagged = np.flatnonzero(volume | rate)
+    return flagged[np.lexsort((np.asarray(first)[flagged], -counts[flagged]))]
+
+
+def implausible_result(order: np.ndarray, name, counts: np.ndarray, volume: np.ndarray,
+                       rate: np.ndarray, threshold: float | None,
+                       considered: int) -> ImplausibleUsers:
+    """:class:`ImplausibleUsers` from the flagged positions ``order`` and ``name[i]``, the id
+    of the user at position ``i``."""
+    return ImplausibleUsers(
+        users=tuple(str(name[i]) for i in order),
+        by_volume=tuple(str(name[i]) for i in order if volume[i]),
+        by_rate=tuple(str(name[i]) for i in order if rate[i]),
+        volume_threshold=threshold,
+        users_considered=considered,
+        counted_events={str(name[i]): int(counts[i]) for i in order},
+    )
+
+
+def anomaly_issues(day: np.ndarray, events: np.ndarray, bots: ImplausibleUsers, *,
+                   as_of: pd.Timestamp, config: AuditConfig,
+                   first_of_users: Callable[[tuple[str, ...]], tuple[str, int]],
+                   first_at: Callable[[str], tuple[str, int]]
+                   ) -> tuple[list[QualityIssue], list[str]]:
+    """The issues of :func:`advisor.validate.anomalies.issues_from_daily` from usable events
+    per day (``day``: days since the epoch, sorted); ``first_at`` takes a SQL condition on
+    ``ts`` (epoch nanoseconds) and names the first matching row."""
+    index = pd.to_datetime(np.asarray(day, dtype=np.int64) * _DAY_NS, unit="ns", utc=True)
+    full = pd.date_range(index.min(), index.max(), freq="D")
+    daily = pd.Series(np.asarray(events, dtype=np.int64), index=index).reindex(
+        full, fill_value=0).astype(np.int64)
+    locate = RowLocator(
+        first_of_users=first_of_users,
+        first_from=lambda t: first_at(f"ts >= {t.value}"),
+        first_on_day=lambda d: first_at(f"ts >= {d.value} AND ts < {d.value + _DAY_NS}"),
+    )
+    return issues_from_daily(daily, bots, as_of=as_of, config=config, locate=locate)

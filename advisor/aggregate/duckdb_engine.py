@@ -36,9 +36,12 @@ import pandas as pd
 
 from advisor.aggregate import _sql_validate as sv
 from advisor.aggregate._engine_common import (
+    anomaly_issues,
+    busiest_first,
     check_enough,
     duplicate_issue,
     finish_validation,
+    implausible_result,
     quarantine_issues,
     renumber,
     unmapped_issue,
@@ -54,8 +57,6 @@ from advisor.load.model import LOG_FIELDS, ColumnDetection, InputFile, RawCatalo
 from advisor.validate.anomalies import (
     MIN_USERS_FOR_QUANTILE,
     ImplausibleUsers,
-    RowLocator,
-    issues_from_daily,
 )
 from advisor.validate.checks import QUARANTINE_REASONS, build_catalog
 from advisor.validate.model import QualityIssue, ValidatedLog
@@ -354,9 +355,7 @@ class DuckDBEngine:
                 GROUP BY e.u, h HAVING count(*) > {cap})""")
         self._con.unregister("adv_busy_df")
         rate = per["u"].isin(fast["u"]).to_numpy()
-        flagged = np.flatnonzero(volume | rate)
-        # Busiest first; ties in order of first appearance, as pandas.factorize numbers them.
-        order = flagged[np.lexsort((per["first"].to_numpy()[flagged], -counts[flagged]))]
+        order = busiest_first(volume, rate, counts, per["first"].to_numpy())
         self._con.register("adv_flag_df", pd.DataFrame(
             {"code": per["u"].to_numpy(dtype=np.int64)[order]}))
         found = self._df("SELECT d.code, d.key FROM adv_udict d "
@@ -364,14 +363,7 @@ class DuckDBEngine:
         self._con.unregister("adv_flag_df")
         key = dict(zip(found["code"].astype(np.int64), found["key"].astype(str)))
         name = {int(i): key[int(per["u"].iat[i])] for i in order}
-        return ImplausibleUsers(
-            users=tuple(str(name[i]) for i in order),
-            by_volume=tuple(str(name[i]) for i in order if volume[i]),
-            by_rate=tuple(str(name[i]) for i in order if rate[i]),
-            volume_threshold=threshold,
-            users_considered=len(per),
-            counted_events={str(name[i]): int(counts[i]) for i in order},
-        )
+        return implausible_result(order, name, counts, volume, rate, threshold, len(per))
 
     def _first_at(self, where: str) -> tuple[str, int]:
         pos = self._con.execute(f"SELECT pos FROM adv_ev WHERE {where} ORDER BY ts, pos "
@@ -384,18 +376,9 @@ class DuckDBEngine:
         :func:`advisor.validate.anomalies.issues_from_daily`, as on the pandas path."""
         days = self._df(f"SELECT adv_fdiv(ts, {_DAY_NS}) AS d, count(*) AS c FROM adv_ev "
                         "GROUP BY ALL ORDER BY 1")
-        index = pd.to_datetime(days["d"].to_numpy(dtype=np.int64) * _DAY_NS, unit="ns",
-                               utc=True)
-        full = pd.date_range(index.min(), index.max(), freq="D")
-        daily = pd.Series(days["c"].to_numpy(dtype=np.int64), index=index).reindex(
-            full, fill_value=0).astype(np.int64)
-        locate = RowLocator(
-            first_of_users=self._first_of_users,
-            first_from=lambda t: self._first_at(f"ts >= {t.value}"),
-            first_on_day=lambda d: self._first_at(
-                f"ts >= {d.value} AND ts < {d.value + _DAY_NS}"),
-        )
-        return issues_from_daily(daily, bots, as_of=as_of, config=self._config, locate=locate)
+        return anomaly_issues(days["d"].to_numpy(), days["c"].to_numpy(), bots, as_of=as_of,
+                              config=self._config, first_of_users=self._first_of_users,
+                              first_at=self._first_at)
 
     def _first_of_users(self, users: tuple[str, ...]) -> tuple[str, int]:
         self._con.register("adv_bots_df", pd.DataFrame({"key": list(users)}))

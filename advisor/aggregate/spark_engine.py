@@ -63,16 +63,19 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from advisor.aggregate import _spark_sql as ss
-from advisor.aggregate._sql_input import SourceFile, raw_rows
-from advisor.aggregate._sql_validate import KIND_NAMES, event_rules, read_odd_timestamps
 from advisor.aggregate._engine_common import (
+    anomaly_issues,
+    busiest_first,
     check_enough,
     duplicate_issue,
     finish_validation,
+    implausible_result,
     quarantine_issues,
     unmapped_issue,
     weekly_frame,
 )
+from advisor.aggregate._sql_input import SourceFile, raw_rows
+from advisor.aggregate._sql_validate import KIND_NAMES, event_rules, read_odd_timestamps
 from advisor.aggregate.model import Aggregates
 from advisor.aggregate.pandas_engine import _WEEK
 from advisor.aggregate.summary import EventSummary
@@ -83,8 +86,6 @@ from advisor.load.readers import _one_line
 from advisor.validate.anomalies import (
     MIN_USERS_FOR_QUANTILE,
     ImplausibleUsers,
-    RowLocator,
-    issues_from_daily,
 )
 from advisor.validate.checks import QUARANTINE_REASONS, build_catalog
 from advisor.validate.model import QualityIssue, ValidatedLog
@@ -541,18 +542,9 @@ class SparkEngine:
                               * np.quantile(counts, config.implausible_quantile))
             volume = counts > threshold
         rate = per["top_hour"].to_numpy(dtype=np.int64) > int(config.max_events_per_hour)
-        flagged = np.flatnonzero(volume | rate)
-        # Busiest first; ties in order of first appearance, as pandas.factorize numbers them.
-        order = flagged[np.lexsort((per["first"].to_numpy()[flagged], -counts[flagged]))]
+        order = busiest_first(volume, rate, counts, per["first"].to_numpy())
         name = per["u"].to_numpy(dtype=object)
-        return ImplausibleUsers(
-            users=tuple(str(name[i]) for i in order),
-            by_volume=tuple(str(name[i]) for i in order if volume[i]),
-            by_rate=tuple(str(name[i]) for i in order if rate[i]),
-            volume_threshold=threshold,
-            users_considered=len(per),
-            counted_events={str(name[i]): int(counts[i]) for i in order},
-        )
+        return implausible_result(order, name, counts, volume, rate, threshold, len(per))
 
     def _first_at(self, where: str) -> tuple[str, int]:
         pos = self._arrow(f"SELECT pos FROM adv_ev WHERE {where} ORDER BY ts, pos "
@@ -567,18 +559,9 @@ class SparkEngine:
             SELECT {ss.fdiv('e.ts', _DAY_NS)} AS d, count(*) AS c, count_if(ru.counts) AS ci
             FROM adv_ev e JOIN adv_rules ru ON ru.r = e.r GROUP BY 1""").sort_values("d")
         self._days = days
-        index = pd.to_datetime(days["d"].to_numpy(dtype=np.int64) * _DAY_NS, unit="ns",
-                               utc=True)
-        full = pd.date_range(index.min(), index.max(), freq="D")
-        daily = pd.Series(days["c"].to_numpy(dtype=np.int64), index=index).reindex(
-            full, fill_value=0).astype(np.int64)
-        locate = RowLocator(
-            first_of_users=self._first_of_users,
-            first_from=lambda t: self._first_at(f"ts >= {t.value}"),
-            first_on_day=lambda d: self._first_at(
-                f"ts >= {d.value} AND ts < {d.value + _DAY_NS}"),
-        )
-        return issues_from_daily(daily, bots, as_of=as_of, config=self._config, locate=locate)
+        return anomaly_issues(days["d"].to_numpy(), days["c"].to_numpy(), bots, as_of=as_of,
+                              config=self._config, first_of_users=self._first_of_users,
+                              first_at=self._first_at)
 
     def _first_of_users(self, users: tuple[str, ...]) -> tuple[str, int]:
         self._table("adv_bots", pa.table({"u": pa.array(list(users), pa.string())}))
