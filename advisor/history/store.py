@@ -24,6 +24,7 @@ from __future__ import annotations
 import json
 import sqlite3
 import shutil
+import time
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from datetime import datetime, timezone
@@ -182,8 +183,7 @@ class HistoryStore:
             # Between the read-only look and this connection another process may have
             # replaced the file; look again before switching the journal mode (a write).
             version = self._check(conn)
-            if conn.execute("PRAGMA journal_mode").fetchone()[0].lower() != "wal":
-                conn.execute("PRAGMA journal_mode = WAL")
+            self._use_wal(conn)
             if version < schema_version():
                 with self._write() as c:
                     # Re-read inside the lock: a concurrent first audit may have created the
@@ -197,6 +197,27 @@ class HistoryStore:
             raise self._error(exc, "open") from None
 
     # -- opening ---------------------------------------------------------------------------
+
+    def _use_wal(self, conn: sqlite3.Connection) -> None:
+        """Switch the file to write-ahead logging unless it is already, waiting up to timeout.
+
+        The switch needs the file to itself, and SQLite answers "database is locked" at once
+        rather than through the busy timeout when other connections are opening the same new
+        file; so wait and look again (another process has often switched it meanwhile).
+        """
+        deadline = time.monotonic() + self.timeout
+        pause = 0.005
+        while True:
+            try:
+                if conn.execute("PRAGMA journal_mode").fetchone()[0].lower() != "wal":
+                    conn.execute("PRAGMA journal_mode = WAL")
+                return
+            except sqlite3.OperationalError as exc:
+                busy = "locked" in str(exc) or "busy" in str(exc)
+                if not busy or time.monotonic() + pause > deadline:
+                    raise
+            time.sleep(pause)
+            pause = min(2 * pause, 0.25)
 
     def _inspect_read_only(self) -> None:
         """Look at an existing file without any chance of writing to it."""
@@ -214,12 +235,27 @@ class HistoryStore:
 
     def _check(self, conn: sqlite3.Connection) -> int:
         """Schema version of an advisor history (0: empty file); raise when it is not one."""
+        # One read transaction for every look: in autocommit each statement sees its own
+        # snapshot, so a first audit in another process committing its schema between two
+        # of them showed "no tables" beside a set schema version.
+        own = not conn.in_transaction
         try:
-            tables = sorted(r[0] for r in conn.execute(
-                "SELECT name FROM sqlite_master WHERE type = 'table' "
-                "AND name NOT LIKE 'sqlite_%'"))
-            version = int(conn.execute("PRAGMA user_version").fetchone()[0])
-            ok = conn.execute("PRAGMA quick_check").fetchone()[0]
+            if own:
+                conn.execute("BEGIN")
+            try:
+                tables = sorted(r[0] for r in conn.execute(
+                    "SELECT name FROM sqlite_master WHERE type = 'table' "
+                    "AND name NOT LIKE 'sqlite_%'"))
+                version = int(conn.execute("PRAGMA user_version").fetchone()[0])
+                ok = conn.execute("PRAGMA quick_check").fetchone()[0]
+                app = None
+                if "advisor_meta" in tables:
+                    row = conn.execute(
+                        "SELECT value FROM advisor_meta WHERE key = 'app'").fetchone()
+                    app = row[0] if row else None
+            finally:
+                if own and conn.in_transaction:
+                    conn.execute("COMMIT")
         except sqlite3.DatabaseError as exc:
             raise self._error(exc, "read") from None
         p = self.path
@@ -230,10 +266,6 @@ class HistoryStore:
                 "over past --as-of dates rebuilds the history).")
         if not tables and version == 0:
             return 0
-        app = None
-        if "advisor_meta" in tables:
-            row = conn.execute("SELECT value FROM advisor_meta WHERE key = 'app'").fetchone()
-            app = row[0] if row else None
         if app != APP_ID:
             shown = ", ".join(tables[:5]) + (", ..." if len(tables) > 5 else "")
             raise HistoryError(
