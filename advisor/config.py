@@ -66,8 +66,6 @@ class EventRule:
     """Event type as it appears in the log (matched case-insensitively)."""
     counts: bool = True
     """Whether it counts as an interaction (an impression does not; a play does)."""
-    weight: float = 1.0
-    """Strength of the signal, for weighted counts."""
     value_kind: str = "none"
     """What the value column means for this event: rating, progress, price or none."""
     value_min: float | None = None
@@ -76,35 +74,37 @@ class EventRule:
     """Largest plausible value (inclusive)."""
 
 
-def _r(name, counts=True, weight=1.0, kind="none", lo=None, hi=None):
-    return EventRule(name, counts, weight, kind, lo, hi)
+def _r(name, counts=True, kind="none", lo=None, hi=None):
+    return EventRule(name, counts, kind, lo, hi)
 
 
-#: Defaults for common event names. Weights are a common-practice ordering (exposure < click
-#: < consumption < purchase), with no published source; set your own in the config file.
+#: Defaults for common event names: exposures and searches do not count as interactions,
+#: everything a user chose to do does (common practice for implicit feedback, no published
+#: source); set your own in the config file. Every counted event is one interaction: the
+#: audit asks how much evidence there is, not how strong each signal is.
 DEFAULT_EVENT_RULES: tuple[EventRule, ...] = (
-    _r("impression", counts=False, weight=0.0),
-    _r("shown", counts=False, weight=0.0),
-    _r("exposure", counts=False, weight=0.0),
-    _r("search", counts=False, weight=0.0),
-    _r("click", weight=0.5),
-    _r("view", weight=1.0),
-    _r("play", weight=1.0),
-    _r("start", weight=1.0),
-    _r("listen", weight=1.0),
-    _r("watch", weight=1.0),
-    _r("read", weight=1.0),
-    _r("progress", weight=1.0, kind="progress", lo=0.0, hi=1.0),
-    _r("complete", weight=2.0),
-    _r("finish", weight=2.0),
-    _r("like", weight=2.0),
-    _r("favourite", weight=2.0),
-    _r("add_to_cart", weight=1.5),
-    _r("purchase", weight=3.0, kind="price", lo=0.0),
-    _r("buy", weight=3.0, kind="price", lo=0.0),
-    _r("order", weight=3.0, kind="price", lo=0.0),
-    _r("rating", weight=2.0, kind="rating", lo=0.0, hi=10.0),
-    _r("rate", weight=2.0, kind="rating", lo=0.0, hi=10.0),
+    _r("impression", counts=False),
+    _r("shown", counts=False),
+    _r("exposure", counts=False),
+    _r("search", counts=False),
+    _r("click"),
+    _r("view"),
+    _r("play"),
+    _r("start"),
+    _r("listen"),
+    _r("watch"),
+    _r("read"),
+    _r("progress", kind="progress", lo=0.0, hi=1.0),
+    _r("complete"),
+    _r("finish"),
+    _r("like"),
+    _r("favourite"),
+    _r("add_to_cart"),
+    _r("purchase", kind="price", lo=0.0),
+    _r("buy", kind="price", lo=0.0),
+    _r("order", kind="price", lo=0.0),
+    _r("rating", kind="rating", lo=0.0, hi=10.0),
+    _r("rate", kind="rating", lo=0.0, hi=10.0),
 )
 
 
@@ -177,7 +177,7 @@ _AUDIT_KEYS = {
 }
 #: Engines that can compute the aggregates.
 ENGINES = ("auto", "duckdb", "pandas", "spark")
-_EVENT_KEYS = {"counts", "weight", "value", "min", "max"}
+_EVENT_KEYS = {"counts", "value", "min", "max"}
 
 
 def _check_keys(where: str, table: dict, allowed: set[str], path: str) -> None:
@@ -254,6 +254,10 @@ def apply_config(data: dict, cfg: AuditConfig, where: str = "config") -> AuditCo
         rules = {r.name.lower(): r for r in cfg.events}
         for name, spec in ev.items():
             spec = _expect(spec, (dict,), f"events.{name}", where)
+            if "weight" in spec:
+                raise ConfigError(
+                    f"{where}: events.{name}.weight: event weights are not used (every counted "
+                    "event is one interaction; counts = false leaves a type out); delete the key")
             _check_keys(f"events.{name}", spec, _EVENT_KEYS, where)
             old = rules.get(name.lower(), EventRule(name))
             kind = spec.get("value", old.value_kind)
@@ -277,8 +281,6 @@ def apply_config(data: dict, cfg: AuditConfig, where: str = "config") -> AuditCo
                 name=name,
                 counts=_expect(spec.get("counts", old.counts), (bool,), f"events.{name}.counts",
                                where),
-                weight=float(_expect(spec.get("weight", old.weight), (int, float),
-                                     f"events.{name}.weight", where)),
                 value_kind=kind,
                 value_min=bounds["min"],
                 value_max=bounds["max"],

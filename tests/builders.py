@@ -1,7 +1,7 @@
 """Build small validated logs by hand for tests, without running the validate stage.
 
 Event types are treated as the default config treats them (an impression does not count, a
-rating carries a rating value, ...); an unknown event type counts, with weight 1.
+rating carries a rating value, ...); an unknown event type counts.
 """
 
 from __future__ import annotations
@@ -51,7 +51,7 @@ def build_log(rows: Sequence[tuple], *, catalog: Catalog | Iterable | None = Non
     """A :class:`ValidatedLog` from ``(user, item, ts[, event[, value]])`` tuples.
 
     ``ts`` is an ISO-8601 string (or a ``pd.Timestamp``); ``event`` defaults to
-    ``interaction`` (counts, weight 1); ``value`` to NaN. ``catalog`` is a :class:`Catalog` or
+    ``interaction`` (counts); ``value`` to NaN. ``catalog`` is a :class:`Catalog` or
     anything :func:`build_catalog` accepts. ``as_of`` defaults to the latest event.
     """
     recs = [(r[0], r[1], r[2], r[3] if len(r) > 3 else "interaction",
@@ -66,11 +66,10 @@ def build_log(rows: Sequence[tuple], *, catalog: Catalog | Iterable | None = Non
     treat = {}
     for name in ev["event"].unique():
         rule = _DEFAULTS.event_rule(name)
-        treat[name] = (rule.value_kind, rule.weight, rule.counts) if rule else ("none", 1.0, True)
+        treat[name] = (rule.value_kind, rule.counts) if rule else ("none", True)
     ev["value_kind"] = ev["event"].map(lambda e: treat[e][0]).astype(str)
     ev["session"] = pd.Series(None, index=ev.index, dtype="str")
-    ev["weight"] = ev["event"].map(lambda e: treat[e][1]).astype(np.float64)
-    ev["counts"] = ev["event"].map(lambda e: treat[e][2]).astype(bool)
+    ev["counts"] = ev["event"].map(lambda e: treat[e][1]).astype(bool)
     ev["_source"] = "log.csv"
     ev["_line"] = np.arange(2, len(ev) + 2, dtype=np.int64)
     if catalog is not None and not isinstance(catalog, Catalog):

@@ -51,17 +51,17 @@ def hand() -> Aggregates:
 
 
 def test_pairs_are_distinct_with_first_and_last_time(hand):
-    """Repeated events on one user-item pair give one pair row with first/last time and count."""
+    """Repeated events on one user-item pair give one pair row with its first and last time."""
     users, items = hand.user_labels, hand.item_labels
-    got = {(users[r.user_idx], items[r.item_idx]): (r.first_ts, r.last_ts, r.events, r.weight)
+    got = {(users[r.user_idx], items[r.item_idx]): (r.first_ts, r.last_ts)
            for r in hand.pairs.itertuples()}
-    assert got == {  # worked by hand from HAND (weight 1 per counted event)
-        ("u1", "a"): (_secs("2024-01-01T10:00Z"), _secs("2024-01-03T10:00Z"), 2, 2.0),
-        ("u1", "b"): (_secs("2024-01-07T23:59:59Z"), _secs("2024-01-07T23:59:59Z"), 1, 1.0),
-        ("u1", "c"): (_secs("2024-01-09T00:00Z"), _secs("2024-01-09T00:00Z"), 1, 1.0),
-        ("u2", "a"): (_secs("2024-01-08T00:00Z"), _secs("2024-01-08T00:00Z"), 1, 1.0),
-        ("u2", "c"): (_secs("2024-01-25T00:00Z"), _secs("2024-01-25T00:00Z"), 1, 1.0),
-        ("u3", "b"): (_secs("2024-01-24T00:00Z"), _secs("2024-01-24T00:00Z"), 1, 1.0),
+    assert got == {  # worked by hand from HAND
+        ("u1", "a"): (_secs("2024-01-01T10:00Z"), _secs("2024-01-03T10:00Z")),
+        ("u1", "b"): (_secs("2024-01-07T23:59:59Z"), _secs("2024-01-07T23:59:59Z")),
+        ("u1", "c"): (_secs("2024-01-09T00:00Z"), _secs("2024-01-09T00:00Z")),
+        ("u2", "a"): (_secs("2024-01-08T00:00Z"), _secs("2024-01-08T00:00Z")),
+        ("u2", "c"): (_secs("2024-01-25T00:00Z"), _secs("2024-01-25T00:00Z")),
+        ("u3", "b"): (_secs("2024-01-24T00:00Z"), _secs("2024-01-24T00:00Z")),
     }
     assert hand.pairs["user_idx"].dtype == np.int32 and hand.pairs["first_ts"].dtype == np.int64
 
@@ -237,7 +237,7 @@ def test_relabelling_users_and_items_changes_no_rate(raw, extra, perm):
     # The same pairs, under the renaming.
     def named(agg, u_of, i_of):
         return {(u_of(agg.user_labels[r.user_idx]), i_of(agg.item_labels[r.item_idx]),
-                 r.first_ts, r.last_ts, r.events) for r in agg.pairs.itertuples()}
+                 r.first_ts, r.last_ts) for r in agg.pairs.itertuples()}
     uback = {v: f"u{k}" for k, v in uname.items()}
     iback = {v: f"i{k}" for k, v in iname.items()}
     assert named(before, str, str) == named(after, uback.get, iback.get)
@@ -273,7 +273,7 @@ def test_duplicating_every_counted_event_doubles_counts_but_not_rates(raw):
     assert twice.counted_events == 2 * once.counted_events
     np.testing.assert_array_equal(twice.item_events, 2 * once.item_events)
     np.testing.assert_array_equal(twice.user_events, 2 * once.user_events)
-    np.testing.assert_array_equal(twice.pairs["events"], 2 * once.pairs["events"])
+    pd.testing.assert_frame_equal(twice.pairs, once.pairs)
     np.testing.assert_array_equal(twice.user_items, once.user_items)
     np.testing.assert_array_equal(twice.item_users, once.item_users)
     r1, r2 = _rates(once), _rates(twice)

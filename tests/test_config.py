@@ -48,7 +48,6 @@ max = 5
 
 [events.Stream]
 counts = true
-weight = 1.5
 
 [events.impression]
 counts = false
@@ -69,8 +68,8 @@ def test_load_config_reads_columns_events_and_audit(tmp_path):
     assert cfg.columns.given() == {"user": "member_id", "item": "sku", "ts": "when"}
     assert cfg.catalog_columns.given() == {"item": "sku", "categories": "genres"}
     assert cfg.catalog_columns.category_separator == ";"
-    assert cfg.event_rule("RATING") == EventRule("rating", True, 2.0, "rating", 1.0, 5.0)
-    assert cfg.event_rule("stream") == EventRule("Stream", True, 1.5, "none", None, None)
+    assert cfg.event_rule("RATING") == EventRule("rating", True, "rating", 1.0, 5.0)
+    assert cfg.event_rule("stream") == EventRule("Stream", True, "none", None, None)
     assert cfg.event_rule("impression").counts is False
     assert (cfg.as_of, cfg.history_cap, cfg.confidence, cfg.backtest, cfg.seed) == (
         "2024-06-30", 50, 0.9, False, 7)
@@ -122,7 +121,6 @@ def test_unknown_key_is_an_error_naming_the_key(tmp_path, text, key, where):
     ("[columns]\nuser = 3\n", "columns.user"),
     ("columns = 'user'\n", "columns"),
     ("[events.play]\ncounts = 'yes'\n", "events.play.counts"),
-    ("[events.play]\nweight = 'high'\n", "events.play.weight"),
     ("[events.rating]\nmin = 'zero'\n", "events.rating.min"),
     ("[events.rating]\nmax = true\n", "events.rating.max"),
     ("[events]\nplay = 1\n", "events.play"),
@@ -204,3 +202,9 @@ def test_apply_config_names_the_source_given():
     """``apply_config`` on a parsed mapping names the source passed in its errors."""
     with pytest.raises(ConfigError, match="from-cli: unknown key 'x'"):
         apply_config({"x": 1}, AuditConfig(), "from-cli")
+
+
+def test_event_weight_key_is_refused_with_what_to_do(tmp_path):
+    """``weight`` under an event type is an error saying weights are not used: delete it."""
+    with pytest.raises(ConfigError, match=r"events\.purchase\.weight.*delete the key"):
+        load_config(_write(tmp_path, "[events.purchase]\nweight = 3.0\n"))

@@ -84,7 +84,7 @@ def test_planted_fixture_sets_each_row_aside_for_its_reason():
         ("empty_event", 15, ["no event type"]),
         ("duplicate_event", 5, ["first copy is kept"]),
         ("unmapped_event_type", 11, ["'wishlist' (2 rows)", "[events.<type>]",
-                                     "count as interactions with weight 1"]),
+                                     "count as interactions"]),
     ],
 )
 def test_every_issue_names_file_line_and_fix(code, line, phrases):
@@ -116,9 +116,9 @@ def test_events_and_quarantine_follow_the_contract():
     v = validate(read_logs(DATA / "validate_planted.csv"), None, AuditConfig(as_of="2024-03-10"))
     ev = v.events
     assert list(ev.columns) == ["user", "item", "ts", "event", "value", "value_kind", "session",
-                                "weight", "counts", "_source", "_line"]
+                                "counts", "_source", "_line"]
     assert str(ev["ts"].dtype) == "datetime64[ns, UTC]"
-    assert ev["value"].dtype == np.float64 and ev["weight"].dtype == np.float64
+    assert ev["value"].dtype == np.float64
     assert ev["counts"].dtype == bool
     assert ev.loc[ev["_line"] == 3, ["event", "value", "value_kind"]].values.tolist() == [
         ["rating", 4.0, "rating"]]
@@ -217,7 +217,7 @@ def test_custom_rule_bounds_are_used():
 
 
 def test_log_without_event_column_is_all_interactions_and_rating_is_inferred():
-    """No event column: event 'interaction', counts, weight 1; a 'rating' column is a rating."""
+    """No event column: event 'interaction', counts; a 'rating' column is a rating."""
     raw = _raw([{"user": "u", "item": "i", "ts": "1709287200", "value": "4.5"},
                 {"user": "u", "item": "j", "ts": "1709287201", "value": "12"}])
     raw = RawLog(raw.rows, raw.files, ColumnDetection(
@@ -225,20 +225,20 @@ def test_log_without_event_column_is_all_interactions_and_rating_is_inferred():
     v = validate(raw, None, AuditConfig())
     ev = v.events
     assert ev["event"].tolist() == ["interaction"] and ev["counts"].all()
-    assert ev["weight"].tolist() == [1.0] and ev["value_kind"].tolist() == ["rating"]
+    assert ev["value_kind"].tolist() == ["rating"]
     assert v.quarantine["reason"].tolist() == ["value_out_of_range"]
     assert any("no event column" in n for n in v.quality.notes)
 
 
 @pytest.mark.parametrize("counts", [True, False])
 def test_unmapped_event_types_follow_the_config_switch(counts):
-    """Event types with no rule count (or not) per unmapped_events_count, weight 1, flagged."""
+    """Event types with no rule count (or not) per unmapped_events_count, flagged."""
     rows = [{"user": "u", "item": "i", "ts": f"17092872{i:02d}", "event": e}
             for i, e in enumerate(["play", "Wishlist", "share", "share"])]
     v = validate(_raw(rows), None, AuditConfig(unmapped_events_count=counts))
     ev = v.events.set_index("event")
     assert ev.loc["share", "counts"].tolist() == [counts, counts]
-    assert ev.loc["wishlist", "weight"] == 1.0
+    assert bool(ev.loc["wishlist", "counts"]) is counts
     issue = _issue(v, "unmapped_event_type")
     assert issue.count == 3 and issue.severity == "flagged"
     assert "'share' (2 rows), 'wishlist' (1 row)" in issue.message

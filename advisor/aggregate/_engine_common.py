@@ -84,13 +84,13 @@ def unmapped_issue(names: list, counts: np.ndarray, file: str, line: int,
     shown = ", ".join(f"{t!r} ({count(int(c), 'row')})"
                       for t, c in zip(names[:10], counts[:10]))
     more = f" and {len(names) - 10} more" if len(names) > 10 else ""
-    treat = ("count as interactions with weight 1" if config.unmapped_events_count
+    treat = ("count as interactions" if config.unmapped_events_count
              else "do not count as interactions")
     return QualityIssue(
         code="unmapped_event_type", count=total, unit="rows",
         severity="flagged", first_file=file, first_line=line,
         message=(f"{count(len(names), 'event type')} with no rule: {shown}{more}; they {treat} "
-                 f"({where(file, line)}). Add [events.<type>] with counts and weight to the "
+                 f"({where(file, line)}). Add [events.<type>] with counts (and value) to the "
                  "config file to say how each is treated."))
 
 

@@ -270,7 +270,6 @@ def event_rules(keys: pd.Series | None, config: AuditConfig, value_column: str |
         "r": np.arange(len(rules), dtype=np.int32),
         "event": pd.Series(names, dtype="str"),
         "counts": [bool(r.counts) for r in rules],
-        "weight": [float(r.weight) for r in rules],
         "kind": pd.Series([r.value_kind for r in rules], dtype="str"),
         "lo": [np.nan if r.value_min is None else float(r.value_min) for r in rules],
         "hi": [np.nan if r.value_max is None else float(r.value_max) for r in rules],

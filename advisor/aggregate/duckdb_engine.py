@@ -409,15 +409,11 @@ class DuckDBEngine:
         the counted ones are then renumbered ``0..n-1`` in the same order, which is the
         numbering ``pandas.factorize(sort=True)`` gives the in-memory engine. Ids sort by
         code point in both (DuckDB compares UTF-8 bytes, which orders the same way).
-
-        ``weight`` sums follow DuckDB's summation order: with weights that are exact binary
-        fractions (every default weight: 0, 0.5, 1, 1.5, 2, 3) the sums are exact and equal;
-        with weights such as 0.1 they may differ from the in-memory engine in the last bit.
         """
         con = self._con
         con.execute(f"""
             CREATE OR REPLACE TEMP TABLE adv_cev AS
-            SELECT e.u, e.i, adv_fdiv(e.ts, {_SEC_NS}) AS sec, ru.weight AS w
+            SELECT e.u, e.i, adv_fdiv(e.ts, {_SEC_NS}) AS sec
             FROM adv_ev e JOIN adv_rules ru USING (r) WHERE ru.counts""")
         users = self._df("SELECT code, key FROM adv_udict WHERE code IN "
                          "(SELECT DISTINCT u FROM adv_cev) ORDER BY code")
@@ -487,11 +483,10 @@ class DuckDBEngine:
         their concatenation. (A counting query to size the columns exactly made DuckDB run
         out of memory at 100M events; lowering its memory for this step did too.)"""
         dtypes = {"user_idx": np.int32, "item_idx": np.int32, "first_ts": np.int64,
-                  "last_ts": np.int64, "events": np.int32, "weight": np.float64}
+                  "last_ts": np.int64}
         out = {name: np.empty(events, dtype=dtype) for name, dtype in dtypes.items()}
         reader = self._con.sql("""
-            SELECT u AS user_idx, i AS item_idx, min(sec) AS first_ts, max(sec) AS last_ts,
-                   count(*)::INTEGER AS events, sum(w) AS weight
+            SELECT u AS user_idx, i AS item_idx, min(sec) AS first_ts, max(sec) AS last_ts
             FROM adv_cev GROUP BY u, i ORDER BY u, i""").to_arrow_reader(1 << 20)
         at = 0
         for batch in reader:

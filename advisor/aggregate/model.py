@@ -28,7 +28,7 @@ class Aggregates:
     """One row per distinct (user, item) pair with a counted interaction, sorted by
     ``user_idx`` then ``item_idx`` (both engines deliver that order). Columns:
     ``user_idx`` (int32), ``item_idx`` (int32), ``first_ts`` and ``last_ts`` (int64 epoch
-    seconds), ``events`` (int32 counted events), ``weight`` (float64 summed weights)."""
+    seconds of the first and latest counted interaction)."""
     user_items: np.ndarray
     """Distinct items per user (int64, length n_users)."""
     user_events: np.ndarray

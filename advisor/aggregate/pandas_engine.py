@@ -52,14 +52,11 @@ def aggregate(log: ValidatedLog) -> Aggregates:
         item_labels = np.concatenate([item_labels, unseen.astype(object)])
     n_items = item_labels.size
 
-    weights = counted["weight"].to_numpy(dtype=np.float64)
     frame = pd.DataFrame({"u": user_codes.astype(np.int32), "i": seen_codes.astype(np.int32),
-                          "t": secs, "w": weights})
+                          "t": secs})
     grouped = frame.groupby(["u", "i"], sort=True)
-    pairs = grouped.agg(first_ts=("t", "min"), last_ts=("t", "max"), events=("t", "size"),
-                        weight=("w", "sum")).reset_index()
+    pairs = grouped.agg(first_ts=("t", "min"), last_ts=("t", "max")).reset_index()
     pairs = pairs.rename(columns={"u": "user_idx", "i": "item_idx"})
-    pairs["events"] = pairs["events"].astype(np.int32)
 
     pu, pi = pairs["user_idx"].to_numpy(), pairs["item_idx"].to_numpy()
     user_items = np.bincount(pu, minlength=n_users).astype(np.int64)

@@ -524,7 +524,7 @@ class SparkEngine:
         config = self._config
         self._view("adv_cev", f"""
             SELECT e.u_key AS u, e.i_key AS i, {ss.fdiv('e.ts', _SEC_NS)} AS sec,
-                   ru.weight AS w, e.pos, e.ts
+                   e.pos, e.ts
             FROM adv_ev e JOIN adv_rules ru ON ru.r = e.r WHERE ru.counts""")
         # Per user, from counts per (user, clock hour): the hourly rule in the same pass.
         self._users = _sorted(self._arrow(f"""
@@ -586,14 +586,10 @@ class SparkEngine:
         -----
         Counted users and items are numbered ``0..n-1`` in sorted code-point order of their
         ids, the numbering ``pandas.factorize(sort=True)`` gives the in-memory engine.
-        ``weight`` sums follow Spark's summation order: exact and equal for weights that are
-        binary fractions (every default weight), possibly different in the last bit for
-        weights such as 0.1.
         """
         users = self._users
         got = self._arrow("""
-            SELECT u, i, min(sec) AS first_ts, max(sec) AS last_ts, count(*) AS events,
-                   sum(w) AS weight
+            SELECT u, i, min(sec) AS first_ts, max(sec) AS last_ts, count(*) AS events
             FROM adv_cev GROUP BY u, i""")
         items = pc.unique(got.column("i"))
         items = items.take(pc.sort_indices(items))
@@ -616,8 +612,6 @@ class SparkEngine:
             "item_idx": pi[order].astype(np.int32),
             "first_ts": got.column("first_ts").to_numpy()[order].astype(np.int64),
             "last_ts": got.column("last_ts").to_numpy()[order].astype(np.int64),
-            "events": got.column("events").to_numpy()[order].astype(np.int32),
-            "weight": got.column("weight").to_numpy()[order].astype(np.float64),
         })
         user_items = np.bincount(pairs["user_idx"].to_numpy(), minlength=n_users).astype(np.int64)
         item_users = np.bincount(pairs["item_idx"].to_numpy(), minlength=n_items).astype(np.int64)

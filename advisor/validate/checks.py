@@ -92,18 +92,18 @@ def _default_rule(config: AuditConfig, value_column: str | None) -> tuple[EventR
     kind = _KIND_BY_VALUE_NAME.get(fold_name(value_column), "none") if value_column else "none"
     base = config.event_rule(_RULE_FOR_KIND[kind]) if kind != "none" else None
     lo, hi = (base.value_min, base.value_max) if base is not None else (None, None)
-    note = "The log has no event column: every row counts as one interaction with weight 1."
+    note = "The log has no event column: every row counts as one interaction."
     if kind != "none":
         bounds = (f" within [{_num(lo, '-inf')}, {_num(hi, 'inf')}]"
                   if lo is not None or hi is not None else "")
         note += (f" Its value column {value_column!r} is read as a {kind}{bounds}, judged by "
                  "its name.")
-    return EventRule("interaction", True, 1.0, kind, lo, hi), note
+    return EventRule("interaction", True, kind, lo, hi), note
 
 
 def _event_rules(event: pd.Series | None, n: int, config: AuditConfig,
                  value_column: str | None) -> tuple[dict[str, np.ndarray], str | None]:
-    """Per-row rule arrays (counts, weight, kind, lo, hi, mapped) and a note."""
+    """Per-row rule arrays (counts, kind, lo, hi, mapped) and a note."""
     if event is None:
         rule, note = _default_rule(config, value_column)
         rules, mapped = [rule], [True]
@@ -111,7 +111,7 @@ def _event_rules(event: pd.Series | None, n: int, config: AuditConfig,
     else:
         codes, uniques = pd.factorize(event)
         found = [config.event_rule(str(u)) for u in uniques]
-        unmapped = EventRule("", config.unmapped_events_count, 1.0)
+        unmapped = EventRule("", config.unmapped_events_count)
         # Unmapped types get the unmapped rule; the last entry serves missing events (code -1).
         rules = [r if r is not None else unmapped for r in found] + [unmapped]
         mapped = [r is not None for r in found] + [True]
@@ -122,7 +122,6 @@ def _event_rules(event: pd.Series | None, n: int, config: AuditConfig,
 
     return {
         "counts": spread([r.counts for r in rules], bool),
-        "weight": spread([float(r.weight) for r in rules], np.float64),
         "kind": spread([r.value_kind for r in rules], object),
         "lo": spread([np.nan if r.value_min is None else r.value_min for r in rules], float),
         "hi": spread([np.nan if r.value_max is None else r.value_max for r in rules], float),
@@ -288,14 +287,14 @@ def _row_issues(rows: pd.DataFrame, reason: np.ndarray, dup: np.ndarray,
         per = typed["event"][unmapped].value_counts()
         shown = ", ".join(f"{t!r} ({_count(int(c), 'row')})" for t, c in per.head(10).items())
         more = f" and {len(per) - 10} more" if len(per) > 10 else ""
-        treat = ("count as interactions with weight 1" if config.unmapped_events_count
+        treat = ("count as interactions" if config.unmapped_events_count
                  else "do not count as interactions")
         file, line, _ = _at(rows, unmapped)
         issues.append(QualityIssue(
             code="unmapped_event_type", count=int(unmapped.sum()), unit="rows",
             severity="flagged", first_file=file, first_line=line,
             message=(f"{_count(len(per), 'event type')} with no rule: {shown}{more}; they {treat} "
-                     f"({_where(file, line)}). Add [events.<type>] with counts and weight to the "
+                     f"({_where(file, line)}). Add [events.<type>] with counts (and value) to the "
                      "config file to say how each is treated.")))
     return issues
 
@@ -447,13 +446,12 @@ def validate(raw: RawLog, catalog: RawCatalog | None, config: AuditConfig) -> Va
 
     events = typed[kept].assign(
         value_kind=pd.Series(rule["kind"][kept], dtype="str").to_numpy(),
-        weight=rule["weight"][kept],
         counts=rule["counts"][kept],
     )
     events[SOURCE_COL] = rows[SOURCE_COL].to_numpy()[kept]
     events[LINE_COL] = rows[LINE_COL].to_numpy()[kept]
-    events = events[["user", "item", "ts", "event", "value", "value_kind", "session", "weight",
-                     "counts", SOURCE_COL, LINE_COL]].reset_index(drop=True)
+    events = events[["user", "item", "ts", "event", "value", "value_kind", "session", "counts",
+                     SOURCE_COL, LINE_COL]].reset_index(drop=True)
     for name in ("user", "item", "event"):
         events[name] = events[name].astype("str")
 

@@ -104,7 +104,7 @@ class ValidatedLog:
     """Usable events, every event type. Columns: ``user`` (str), ``item`` (str),
     ``ts`` (datetime64[ns, UTC]), ``event`` (str; ``interaction`` when the log has no event
     column), ``value`` (float64, NaN when absent), ``value_kind`` (str: ``rating``,
-    ``progress``, ``price`` or ``none``), ``session`` (str or NA), ``weight`` (float64),
+    ``progress``, ``price`` or ``none``), ``session`` (str or NA),
     ``counts`` (bool: counts as an interaction), ``_source``, ``_line``."""
     quarantine: pd.DataFrame
     """Rows set aside: the raw canonical columns, ``reason`` (str), ``_source``, ``_line``."""
