@@ -90,15 +90,21 @@ class Aggregates:
                                      self.pairs["last_ts"].to_numpy()[heavy], cap)]
             keep = np.ones(u.size, dtype=bool) if keep is None else keep
             keep[drop] = False
+        # Every array below is a fresh one (never a view of ``pairs``, which the matrix must
+        # not share), made once: on 100M events each copy of a column is 400 MB.
         if keep is not None:
-            u, i = u[keep], i[keep]
+            u, i = u[keep], i[keep].astype(np.int32, copy=False)
+            del keep
+        else:
+            i = i.astype(np.int32, copy=True)
         if u.size and not (np.all(np.diff(u) >= 0)):
             order = np.lexsort((i, u))
             u, i = u[order], i[order]
         indptr = np.zeros(self.n_users + 1, dtype=np.int64)
         np.cumsum(np.bincount(u, minlength=self.n_users), out=indptr[1:])
-        return sp.csr_matrix((np.ones(u.size, dtype=np.float32), i.astype(np.int32), indptr),
-                             shape=(self.n_users, self.n_items))
+        del u
+        return sp.csr_matrix((np.ones(i.size, dtype=np.float32), i, indptr),
+                             shape=(self.n_users, self.n_items), copy=False)
 
 
 def _beyond_cap(user: np.ndarray, item: np.ndarray, last_ts: np.ndarray,
