@@ -377,3 +377,27 @@ def test_block_by_block_scan_gives_the_single_product_result(fdr, monkeypatch):
                                 tests=active * (active - 1))
         np.testing.assert_array_equal(whole.significant_neighbours,
                                       np.bincount(y[sig], minlength=60))
+
+
+@pytest.mark.parametrize("chunk", [1 << 22, 7])
+def test_bh_cutoff_calls_what_statsmodels_fdr_bh_rejects(chunk, monkeypatch):
+    """The step-up cutoff rejects exactly what statsmodels ``multipletests(method="fdr_bh")``
+    rejects, with ties and with hypotheses beyond the p-values given (they enter as p = 1),
+    whether the ranks are scanned in one piece or seven at a time."""
+    from statsmodels.stats.multitest import multipletests
+
+    import advisor.profile.cooccurrence as cooc
+
+    monkeypatch.setattr(cooc, "_BH_CHUNK", chunk)
+    rng = np.random.default_rng(11)
+    p = np.concatenate([rng.uniform(0, 1e-3, 40), rng.uniform(0, 1, 200),
+                        np.full(5, 2e-4)])  # a block of ties near the cut
+    for tests in (p.size, 4 * p.size):
+        full = np.concatenate([p, np.ones(tests - p.size)])
+        expected = multipletests(full, alpha=0.05, method="fdr_bh")[0][:p.size]
+        own = p.copy()
+        called = p <= cooc._bh_cutoff(own, alpha=0.05, tests=tests)
+        np.testing.assert_array_equal(called, expected)
+        np.testing.assert_array_equal(own, p)  # the caller's p-values are left as they were
+        assert 0 < called.sum() < p.size
+    assert cooc._bh_cutoff(np.array([0.5, 0.9]), alpha=0.05, tests=2) == -np.inf

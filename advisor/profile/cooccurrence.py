@@ -243,7 +243,8 @@ def _pvalues(both: np.ndarray, n_y: np.ndarray, base: np.ndarray) -> np.ndarray:
     return np.where(np.isfinite(z), norm.sf(z), 1.0)
 
 
-def _bh_cutoff(small: np.ndarray, *, alpha: float, tests: int) -> float:
+def _bh_cutoff(small: np.ndarray, *, alpha: float, tests: int,
+               overwrite: bool = False) -> float:
     """Benjamini-Hochberg step-up cutoff: pairs with ``p <= cutoff`` are called.
 
     ``small`` holds every p-value at or below some bound among ``tests`` hypotheses, where
@@ -251,10 +252,29 @@ def _bh_cutoff(small: np.ndarray, *, alpha: float, tests: int) -> float:
     ``alpha k / tests`` never exceeds; or ``alpha n / tests`` when at most ``n`` p-values
     are below 1); the larger ones rank after these. -inf when nothing passes. Equal p-values pass or
     fail together: if p_(j) = p_(k) with j > k and p_(k) passes, so does p_(j).
+    ``overwrite=True`` sorts a float64 ``small`` in place instead of sorting a copy.
+
+    References
+    ----------
+    Benjamini, Y. & Hochberg, Y. (1995). Controlling the false discovery rate: a practical
+    and powerful approach to multiple testing. JRSS B 57(1), 289-300.
     """
-    ranked = np.sort(np.asarray(small, dtype=np.float64))
-    passing = np.flatnonzero(ranked <= alpha * np.arange(1, ranked.size + 1) / max(tests, 1))
-    return float(ranked[passing[-1]]) if passing.size else -math.inf
+    ranked = np.asarray(small, dtype=np.float64) if overwrite else np.array(
+        small, dtype=np.float64)
+    ranked.sort()
+    # The largest passing rank, looked for from the top a chunk at a time, so the ranks and
+    # thresholds never exist for every p-value at once (tens of millions at 100M events).
+    for hi in range(ranked.size, 0, -_BH_CHUNK):
+        lo = max(hi - _BH_CHUNK, 0)
+        passing = np.flatnonzero(
+            ranked[lo:hi] <= alpha * np.arange(lo + 1, hi + 1) / max(tests, 1))
+        if passing.size:
+            return float(ranked[lo + passing[-1]])
+    return -math.inf
+
+
+_BH_CHUNK = 1 << 22
+"""P-values compared with their step-up thresholds at a time in :func:`_bh_cutoff`."""
 
 
 _BLOCK_PRODUCTS = 2_000_000
@@ -555,9 +575,16 @@ def cooccurrence_profile(
                 kept.append(b.subset(cand))
             else:
                 kept = []
-        pvals = np.concatenate(small_p) if small_p else np.zeros(0)
-        del small_p
-        cutoff = _bh_cutoff(pvals, alpha=alpha, tests=tests)
+        # One array of them, each block's part freed as soon as it is copied (concatenating
+        # would hold both; at 100M events they are half a gigabyte).
+        pvals = np.empty(sum(part.size for part in small_p))
+        end = pvals.size
+        while small_p:
+            part = small_p.pop()
+            pvals[end - part.size:end] = part
+            end -= part.size
+            del part
+        cutoff = _bh_cutoff(pvals, alpha=alpha, tests=tests, overwrite=True)
         del pvals
         again = scan.blocks() if n_kept > _KEPT_PAIRS else iter(kept)
         for b in again:
