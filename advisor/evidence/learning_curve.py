@@ -13,7 +13,8 @@ from collections.abc import Callable
 
 import numpy as np
 import scipy.sparse as sp
-import statsmodels.api as sm
+from statsmodels.regression.linear_model import OLS
+from statsmodels.tools.tools import add_constant
 
 from advisor.evidence.compare import BOOTSTRAP_RESAMPLES, bootstrap_mean_interval
 from advisor.evidence.model import CurvePoint, CurveProjection, LearningCurve
@@ -140,13 +141,13 @@ def fit_learning_curve(points: list[tuple[float, int, np.ndarray, np.ndarray]], 
     y = np.concatenate([np.asarray(c, float) - np.asarray(b, float) for _, _, c, b in pts])
     x = np.concatenate([np.full(len(c), math.log2(n)) for _, n, c, _ in pts])
     groups = np.tile(np.arange(n_users), len(pts))
-    design = sm.add_constant(x, has_constant="add")
+    design = add_constant(x, has_constant="add")
     alpha = 1.0 - confidence
     if np.ptp(y) == 0:
         intercept, slope, s_low, s_high = float(y[0]), 0.0, 0.0, 0.0
         res = None
     else:
-        res = sm.OLS(y, design).fit(cov_type="cluster", cov_kwds={"groups": groups})
+        res = OLS(y, design).fit(cov_type="cluster", cov_kwds={"groups": groups})
         intercept, slope = (float(v) for v in res.params)
         s_low, s_high = (float(v) for v in res.conf_int(alpha)[1])
     climbing = s_low > 0
@@ -156,7 +157,7 @@ def fit_learning_curve(points: list[tuple[float, int, np.ndarray, np.ndarray]], 
     if res is not None:
         grid = sorted({now * m for m in (1, 2, 4, 8)} | ({whole} if whole else set()))
         frame = res.get_prediction(
-            sm.add_constant(np.log2(np.array(grid, float)), has_constant="add")
+            add_constant(np.log2(np.array(grid, float)), has_constant="add")
         ).summary_frame(alpha=alpha)
         projections = [CurveProjection(train_users=int(g), lift=float(r.mean),
                                        low=float(r.mean_ci_lower), high=float(r.mean_ci_upper))

@@ -20,7 +20,8 @@ from datetime import date, timedelta
 from typing import Any
 
 import numpy as np
-import statsmodels.api as sm
+from statsmodels.regression.linear_model import OLS
+from statsmodels.tools.tools import add_constant
 from statsmodels.stats.stattools import durbin_watson
 
 from advisor.history.entry import HistoryEntry
@@ -272,7 +273,7 @@ class _Fitted:
     def predict(self, weeks: np.ndarray, alpha: float):
         """Fitted value and prediction interval at week indices, on the metric's scale."""
         frame = self.results.get_prediction(
-            sm.add_constant(np.asarray(weeks, float), has_constant="add")
+            add_constant(np.asarray(weeks, float), has_constant="add")
         ).summary_frame(alpha=alpha)
         cols = (frame["mean"].to_numpy(), frame["obs_ci_lower"].to_numpy(),
                 frame["obs_ci_upper"].to_numpy())
@@ -290,7 +291,7 @@ def _fit(weeks: Sequence[float], values: Sequence[float], *, metric: str, confid
         return (f"only {len(x)} audit(s) with {metric}; a growth forecast needs at least "
                 f"{MIN_POINTS} weekly audits")
     alpha = 1.0 - confidence
-    design = sm.add_constant(x, has_constant="add")
+    design = add_constant(x, has_constant="add")
     fits: dict[str, Any] = {}
     aic: dict[str, float | None] = {"exponential": None, "linear": None}
     positive = bool(np.all(y > 0))
@@ -299,10 +300,10 @@ def _fit(weeks: Sequence[float], values: Sequence[float], *, metric: str, confid
     with warnings.catch_warnings(), np.errstate(divide="ignore", invalid="ignore"):
         warnings.simplefilter("ignore", RuntimeWarning)
         if form in ("auto", "linear"):
-            fits["linear"] = sm.OLS(y, design).fit()
+            fits["linear"] = OLS(y, design).fit()
             aic["linear"] = float(fits["linear"].aic)
         if form in ("auto", "exponential") and positive:
-            fits["exponential"] = sm.OLS(np.log(y), design).fit()
+            fits["exponential"] = OLS(np.log(y), design).fit()
             # Jacobian of y -> log y: the log model's likelihood of y itself is its
             # likelihood of log y times prod(1 / y), so its AIC on y's scale gains
             # 2 * sum(log y) (as in comparing Box-Cox lambda = 0 with lambda = 1).
