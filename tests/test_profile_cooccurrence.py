@@ -401,3 +401,35 @@ def test_bh_cutoff_calls_what_statsmodels_fdr_bh_rejects(chunk, monkeypatch):
         np.testing.assert_array_equal(own, p)  # the caller's p-values are left as they were
         assert 0 < called.sum() < p.size
     assert cooc._bh_cutoff(np.array([0.5, 0.9]), alpha=0.05, tests=2) == -np.inf
+
+
+def test_best_per_item_and_top_pairs_match_a_full_sort_with_many_ties():
+    """Each item's best candidate and the top-n table equal what one full lexsort of the
+    pairs gives (the definition), on blocks with many tied bounds and tied counts, whether
+    the pairs arrive ordered by item or shuffled (planted ties, no outside reference)."""
+    from advisor.profile.cooccurrence import _Block, _TopPairs
+
+    rng = np.random.default_rng(5)
+    y = np.repeat(np.arange(300), rng.integers(1, 30, 300))
+    x = np.concatenate([rng.choice(400, size=k, replace=False)
+                        for k in np.bincount(y)]).astype(np.int64)
+    low = rng.integers(0, 6, y.size) / 10.0  # few distinct values: many ties
+    base = rng.integers(0, 3, y.size) / 10.0
+    both = rng.integers(2, 5, y.size).astype(np.int64)
+    est = rng.random(y.size)
+    sig = rng.random(y.size) < 0.7
+    for order in (np.arange(y.size), rng.permutation(y.size)):
+        b = _Block(y[order], x[order], both[order], low[order], est[order], base[order], None)
+        best_p, best_base = np.full(400, np.nan), np.full(400, np.nan)
+        b.best_into(best_p, best_base)
+        by = np.lexsort((x, -(low - base), y))
+        first = by[np.unique(y[by], return_index=True)[1]]
+        want = np.full(400, np.nan)
+        want[y[first]] = est[first]
+        np.testing.assert_array_equal(best_p, want)
+        top = _TopPairs(25)
+        top.add(b, sig[order])
+        ref = np.flatnonzero(sig)
+        ref = ref[np.lexsort((x[ref], y[ref], -both[ref], -low[ref]))[:25]]
+        for got, col in zip(top.cols, (y, x, both, low)):
+            np.testing.assert_array_equal(got, col[ref])

@@ -286,6 +286,24 @@ _KEPT_PAIRS = 20_000_000
 (28 bytes each); beyond it the blocks are computed a second time instead."""
 
 
+def _best_per_group(group: np.ndarray, score: np.ndarray, tie: np.ndarray) -> np.ndarray:
+    """Position of the largest ``score`` in each run of equal ``group`` values (ties: the
+    smallest ``tie``), in group order; ``group`` must be sorted and ``(group, tie)`` distinct.
+
+    Examples
+    --------
+    >>> _best_per_group(np.array([0, 0, 0, 2, 2]), np.array([.1, .3, .3, .5, .2]),
+    ...                 np.array([5, 9, 7, 1, 0])).tolist()
+    [2, 3]
+    """
+    starts = np.flatnonzero(np.r_[True, group[1:] != group[:-1]])
+    sizes = np.diff(np.r_[starts, group.size])
+    top = score == np.repeat(np.maximum.reduceat(score, starts), sizes)
+    # Among each group's best scores, the smallest tie value (larger than any when not best).
+    ties = np.where(top, tie, np.iinfo(np.int64).max)
+    return np.flatnonzero(top & (ties == np.repeat(np.minimum.reduceat(ties, starts), sizes)))
+
+
 @dataclass(slots=True)
 class _Block:
     """Scored ordered pairs "x given y" of one block of conditioning items y."""
@@ -302,8 +320,12 @@ class _Block:
         """Each y's strongest candidate: the largest ``low - base`` (ties: lowest x)."""
         if not self.y.size:
             return
-        by = np.lexsort((self.x, -(self.low - self.base), self.y))
-        pick = by[np.unique(self.y[by], return_index=True)[1]]
+        order = None if np.all(self.y[1:] >= self.y[:-1]) else np.argsort(self.y, kind="stable")
+        if order is None:
+            pick = _best_per_group(self.y, self.low - self.base, self.x)
+        else:  # blocks come row by row; this is only a safeguard
+            pick = order[_best_per_group(self.y[order], (self.low - self.base)[order],
+                                         self.x[order])]
         best_p[self.y[pick]] = self.estimate[pick]
         best_base[self.y[pick]] = self.base[pick]
 
@@ -364,6 +386,11 @@ class _TopPairs:
         if not self.n:
             return
         idx = np.flatnonzero(sig)
+        if idx.size > self.n:
+            # Only pairs whose bound reaches the block's n-th largest can enter the top n
+            # (every pair below it has n pairs ranked before it); ties at it are all kept.
+            low = block.low[idx]
+            idx = idx[low >= np.partition(low, idx.size - self.n)[idx.size - self.n]]
         y, x, both, low = (np.concatenate([old, new[idx]]) for old, new in
                            zip(self.cols, (block.y, block.x, block.both, block.low)))
         order = np.lexsort((x, y, -both, -low))[:self.n]
