@@ -90,8 +90,8 @@ class Aggregates:
                                      self.pairs["last_ts"].to_numpy()[heavy], cap)]
             keep = np.ones(u.size, dtype=bool) if keep is None else keep
             keep[drop] = False
-        # Every array below is a fresh one (never a view of ``pairs``, which the matrix must
-        # not share), made once: on 100M events each copy of a column is 400 MB.
+        # The matrix's arrays are fresh (it must not share memory with ``pairs``) and each is
+        # made once: on 100M events a copy of a column is 400 MB.
         if keep is not None:
             u, i = u[keep], i[keep].astype(np.int32, copy=False)
             del keep
