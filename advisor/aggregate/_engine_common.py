@@ -9,10 +9,12 @@ wording or layout.
 from __future__ import annotations
 
 from collections.abc import Callable
+from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 
+from advisor.aggregate._sql_validate import event_rules
 from advisor.aggregate.pandas_engine import _WEEK, week_start
 from advisor.config import AuditConfig
 from advisor.errors import InsufficientDataError
@@ -22,12 +24,21 @@ from advisor.validate.anomalies import (
     RowLocator,
     issues_from_daily,
 )
-from advisor.validate.checks import QUARANTINE_REASONS, _row_issues
+from advisor.validate.checks import (
+    QUARANTINE_REASONS,
+    _row_issues,
+    all_set_aside,
+    duplicate_issue,
+    unmapped_issue,
+)
+from advisor.validate.checks import _count as count
+from advisor.validate.checks import _where as where
 from advisor.validate.model import Catalog, QualityIssue, QualityReport, ValidatedLog
+from advisor.validate.timestamps import ParsedTimestamps, resolve_as_of
 
-__all__ = ["anomaly_issues", "busiest_first", "check_enough", "count", "duplicate_issue",
-           "finish_validation", "implausible_result", "quarantine_issues", "renumber",
-           "unmapped_issue", "weekly_frame", "where"]
+__all__ = ["ScanStart", "anomaly_issues", "busiest_first", "check_enough", "count",
+           "duplicate_issue", "finish_validation", "implausible_result", "quarantine_issues",
+           "renumber", "start_validation", "unmapped_issue", "weekly_frame", "where"]
 
 
 def renumber(codes: np.ndarray) -> np.ndarray:
@@ -35,16 +46,6 @@ def renumber(codes: np.ndarray) -> np.ndarray:
     lut = np.full(int(codes.max()) + 1 if codes.size else 0, -1, dtype=np.int32)
     lut[codes] = np.arange(codes.size, dtype=np.int32)
     return lut
-
-
-def count(n: int, noun: str) -> str:
-    """``"1 row"``, ``"3 rows"``."""
-    return f"{n:,} {noun}{'' if n == 1 else 's'}"
-
-
-def where(file: str | None, line: int | None) -> str:
-    """Where an issue is first seen, for its message."""
-    return f"first at {file} line {line}" if file is not None else "no row to point at"
 
 
 def quarantine_issues(q: pd.DataFrame, qrows: pd.DataFrame, reason: np.ndarray,
@@ -64,36 +65,6 @@ def quarantine_issues(q: pd.DataFrame, qrows: pd.DataFrame, reason: np.ndarray,
     return _row_issues(qrows, reason, none, rule, none, typed, as_of, config, cat_src)
 
 
-def duplicate_issue(dups: int, file: str, line: int) -> QualityIssue:
-    """The ``duplicate_event`` issue (exact repeats, first copy kept)."""
-    return QualityIssue(
-        code="duplicate_event", count=dups, unit="rows", severity="dropped",
-        first_file=file, first_line=line,
-        message=(f"{count(dups, 'row')} repeating an earlier event exactly "
-                 f"(same user, item, time, event type, value and session; "
-                 f"{where(file, line)}); the "
-                 "first copy is kept. A double export or a retrying logger is the usual "
-                 "cause; check the export if there are many."))
-
-
-def unmapped_issue(names: list, counts: np.ndarray, file: str, line: int,
-                    config: AuditConfig) -> QualityIssue:
-    """The ``unmapped_event_type`` issue from the event types with no rule (most rows
-    first) and their row counts."""
-    total = int(counts.sum())
-    shown = ", ".join(f"{t!r} ({count(int(c), 'row')})"
-                      for t, c in zip(names[:10], counts[:10]))
-    more = f" and {len(names) - 10} more" if len(names) > 10 else ""
-    treat = ("count as interactions" if config.unmapped_events_count
-             else "do not count as interactions")
-    return QualityIssue(
-        code="unmapped_event_type", count=total, unit="rows",
-        severity="flagged", first_file=file, first_line=line,
-        message=(f"{count(len(names), 'event type')} with no rule: {shown}{more}; they {treat} "
-                 f"({where(file, line)}). Add [events.<type>] with counts (and value) to the "
-                 "config file to say how each is treated."))
-
-
 def check_enough(n_rows: int, rows_used: int, qrows: pd.DataFrame, reason: np.ndarray,
                  counted: Callable[[], int], event_types: Callable[[], dict[str, int]],
                  mapping: dict[str, str]) -> None:
@@ -110,13 +81,7 @@ def check_enough(n_rows: int, rows_used: int, qrows: pd.DataFrame, reason: np.nd
                 file = str(qrows["_source"].iat[hits[0]])
                 line = int(qrows["_line"].iat[hits[0]])
                 parts.append(f"{code} {hits.size:,} ({where(file, line)})")
-        cols = ", ".join(f"{k}={v!r}" for k, v in mapping.items())
-        raise InsufficientDataError(
-            f"every one of the {n_rows:,} rows read was set aside: {'; '.join(parts)}. Fix "
-            f"those problems in the input, or check the column mapping ({cols}) and name "
-            "the right columns with the --user-col/--item-col/--ts-col options or "
-            "[columns]."
-        )
+        raise all_set_aside(n_rows, parts, mapping)
     if counted() == 0:
         shown = ", ".join(f"{t!r} {c:,}" for t, c in list(event_types().items())[:10])
         raise InsufficientDataError(
@@ -149,6 +114,50 @@ def weekly_frame(w_every, c_every, c_inter, w_counted, active, returning,
         "new_users": new_users.astype(np.int64),
         "new_items": new_items.astype(np.int64),
     })
+
+
+@dataclass(frozen=True, slots=True)
+class ScanStart:
+    """What an out-of-core engine's first scan settles before any row is judged."""
+
+    notes: list[str]
+    """Notes so far (skipped files, timestamps, as-of date, event column); the engine adds
+    its own."""
+    timestamp_format: str
+    as_of: pd.Timestamp
+    has_event: bool
+    event_map: pd.DataFrame | None
+    """Each event text's rule number (``None`` without an event column)."""
+    rules: pd.DataFrame
+    """One row per event rule: counts, value kind and bounds, mapped."""
+    missing_r: int
+    """Rule number of rows with no event type."""
+
+
+def start_validation(skipped_files, per_event: pd.DataFrame, stats: dict,
+                     mapping: dict, config: AuditConfig) -> ScanStart:
+    """The notes, as-of date and event rule tables from the scan statistics, as the
+    in-memory path words and orders them (the same for DuckDB and Spark)."""
+    notes: list[str] = []
+    if skipped_files:
+        sk = skipped_files
+        notes.append(f"Files skipped in the log folder (unsupported type): "
+                     f"{', '.join(sk[:10])}{' ...' if len(sk) > 10 else ''}.")
+    parsed = ParsedTimestamps(values=pd.Series([], dtype="datetime64[ns, UTC]"),
+                              missing=np.zeros(0, bool), bad=np.zeros(0, bool),
+                              kinds=stats["kinds"], naive=stats["naive"],
+                              date_only=stats["date_only"])
+    as_of, as_of_note = resolve_as_of(config.as_of, stats["ts_max"])
+    notes.extend(parsed.notes())
+    notes.append(as_of_note)
+    has_event = "event" in mapping
+    keys = None
+    if has_event:
+        keys = per_event.loc[per_event["ev_key"].notna()].sort_values("first")["ev_key"]
+    em, rules, missing_r, note = event_rules(keys, config, mapping.get("value"))
+    if note:
+        notes.append(note)
+    return ScanStart(notes, parsed.format, as_of, has_event, em, rules, missing_r)
 
 
 def finish_validation(*, bots: ImplausibleUsers,

@@ -44,6 +44,7 @@ from advisor.aggregate._engine_common import (
     implausible_result,
     quarantine_issues,
     renumber,
+    start_validation,
     unmapped_issue,
     weekly_frame,
 )
@@ -60,7 +61,6 @@ from advisor.validate.anomalies import (
 )
 from advisor.validate.checks import QUARANTINE_REASONS, build_catalog
 from advisor.validate.model import QualityIssue, ValidatedLog
-from advisor.validate.timestamps import ParsedTimestamps, resolve_as_of
 
 __all__ = ["DuckDBEngine", "memory_limit_bytes"]
 
@@ -203,11 +203,6 @@ class DuckDBEngine:
         """
         con, config = self._con, self._config
         mapping = self.columns.mapping
-        notes: list[str] = []
-        if self.skipped_files:
-            sk = self.skipped_files
-            notes.append(f"Files skipped in the log folder (unsupported type): "
-                         f"{', '.join(sk[:10])}{' ...' if len(sk) > 10 else ''}.")
 
         odd = sv.read_odd_timestamps(sv.odd_timestamp_keys(con))
         con.register("adv_lk_df", odd)
@@ -217,21 +212,8 @@ class DuckDBEngine:
         sv.create_timestamp_view(con)
         per_event, stats = sv.scan_stats(con)
         n_rows = stats["rows"]
-        parsed = ParsedTimestamps(values=pd.Series([], dtype="datetime64[ns, UTC]"),
-                                  missing=np.zeros(0, bool), bad=np.zeros(0, bool),
-                                  kinds=stats["kinds"], naive=stats["naive"],
-                                  date_only=stats["date_only"])
-        as_of, as_of_note = resolve_as_of(config.as_of, stats["ts_max"])
-        notes.extend(parsed.notes())
-        notes.append(as_of_note)
-
-        has_event = "event" in mapping
-        keys = None
-        if has_event:
-            keys = per_event.loc[per_event["ev_key"].notna()].sort_values("first")["ev_key"]
-        em, rules, missing_r, note = sv.event_rules(keys, config, mapping.get("value"))
-        if note:
-            notes.append(note)
+        start = start_validation(self.skipped_files, per_event, stats, mapping, config)
+        notes, as_of, em, rules = start.notes, start.as_of, start.event_map, start.rules
         self._rules = rules
         con.register("adv_rules_df", rules)
         con.execute("CREATE OR REPLACE TEMP TABLE adv_rules AS SELECT * FROM adv_rules_df")
@@ -252,7 +234,7 @@ class DuckDBEngine:
             con.unregister("adv_cat_df")
 
         sv.create_dictionaries(con)
-        sv.create_rows(con, has_event=has_event, missing_r=missing_r,
+        sv.create_rows(con, has_event=start.has_event, missing_r=start.missing_r,
                        as_of_ns=None if pd.isna(as_of) else int(as_of.value),
                        has_catalog=catalog is not None)
         sv.create_events(con)
@@ -295,7 +277,7 @@ class DuckDBEngine:
         return finish_validation(
             bots=bots, anomalies=self._anomaly_issues(bots, as_of), issues=issues,
             notes=notes, catalog_issues=cat_issues, n_rows=n_rows, rows_used=rows_used,
-            quarantine=quarantine, duplicates=dups, timestamp_format=parsed.format,
+            quarantine=quarantine, duplicates=dups, timestamp_format=start.timestamp_format,
             as_of=as_of, catalog=cat_obj, config=config)
 
     def _row_issues(self, q: pd.DataFrame, qrows: pd.DataFrame, reason: np.ndarray,

@@ -71,12 +71,13 @@ from advisor.aggregate._engine_common import (
     finish_validation,
     implausible_result,
     quarantine_issues,
+    start_validation,
     unmapped_issue,
     weekly_frame,
 )
 from advisor.aggregate._sql_input import SourceFile, raw_rows
-from advisor.aggregate._sql_validate import KIND_NAMES, event_rules, read_odd_timestamps
-from advisor.aggregate.model import Aggregates
+from advisor.aggregate._sql_validate import KIND_NAMES, read_odd_timestamps
+from advisor.aggregate.model import Aggregates, labels_in
 from advisor.aggregate.pandas_engine import _WEEK
 from advisor.aggregate.summary import EventSummary
 from advisor.config import AuditConfig
@@ -89,7 +90,6 @@ from advisor.validate.anomalies import (
 )
 from advisor.validate.checks import QUARANTINE_REASONS, build_catalog
 from advisor.validate.model import QualityIssue, ValidatedLog
-from advisor.validate.timestamps import ParsedTimestamps, resolve_as_of
 
 __all__ = ["SparkEngine"]
 
@@ -403,28 +403,10 @@ class SparkEngine:
         """
         config = self._config
         mapping = self.columns.mapping
-        notes: list[str] = []
-        if self.skipped_files:
-            sk = self.skipped_files
-            notes.append(f"Files skipped in the log folder (unsupported type): "
-                         f"{', '.join(sk[:10])}{' ...' if len(sk) > 10 else ''}.")
         per_event, stats = self._scan()
         n_rows = stats["rows"]
-        parsed = ParsedTimestamps(values=pd.Series([], dtype="datetime64[ns, UTC]"),
-                                  missing=np.zeros(0, bool), bad=np.zeros(0, bool),
-                                  kinds=stats["kinds"], naive=stats["naive"],
-                                  date_only=stats["date_only"])
-        as_of, as_of_note = resolve_as_of(config.as_of, stats["ts_max"])
-        notes.extend(parsed.notes())
-        notes.append(as_of_note)
-
-        has_event = "event" in mapping
-        keys = None
-        if has_event:
-            keys = per_event.loc[per_event["ev_key"].notna()].sort_values("first")["ev_key"]
-        em, rules, missing_r, note = event_rules(keys, config, mapping.get("value"))
-        if note:
-            notes.append(note)
+        start = start_validation(self.skipped_files, per_event, stats, mapping, config)
+        notes, as_of, em, rules = start.notes, start.as_of, start.event_map, start.rules
         self._rules = rules
         self._table("adv_rules", pa.Table.from_pandas(rules, preserve_index=False))
         if em is not None:
@@ -438,7 +420,7 @@ class SparkEngine:
             self._table("adv_cat", pa.table({"item": items}))
 
         self._view("adv_rows", ss.rows_sql(
-            has_event=has_event, missing_r=missing_r,
+            has_event=start.has_event, missing_r=start.missing_r,
             as_of_ns=None if pd.isna(as_of) else int(as_of.value),
             has_catalog=catalog is not None), cache=True)
         q = self._df("""
@@ -482,7 +464,7 @@ class SparkEngine:
         return finish_validation(
             bots=bots, anomalies=self._anomaly_issues(bots, as_of), issues=issues,
             notes=notes, catalog_issues=cat_issues, n_rows=n_rows, rows_used=rows_used,
-            quarantine=quarantine, duplicates=dups, timestamp_format=parsed.format,
+            quarantine=quarantine, duplicates=dups, timestamp_format=start.timestamp_format,
             as_of=as_of, catalog=cat_obj, config=config)
 
     def _raw_rows(self, fields: list[str], f: np.ndarray, line: np.ndarray) -> pd.DataFrame:
@@ -626,8 +608,7 @@ class SparkEngine:
         item_first = np.full(n_items, -1, dtype=np.int64)
         item_first[:n_seen] = first_seen
 
-        implausible = np.isin(user_labels.astype(str),
-                              np.asarray(log.implausible_users, dtype=str))
+        implausible = labels_in(user_labels, log.implausible_users)
         weekly = self._weekly(user_first, first_seen)
         return Aggregates(
             user_labels=user_labels,

@@ -274,29 +274,51 @@ def _row_issues(rows: pd.DataFrame, reason: np.ndarray, dup: np.ndarray,
                                    message=msg))
     if dup.any():
         file, line, _ = _at(rows, dup)
-        issues.append(QualityIssue(
-            code="duplicate_event", count=int(dup.sum()), unit="rows", severity="dropped",
-            first_file=file, first_line=line,
-            message=(f"{_count(int(dup.sum()), 'row')} repeating an earlier event exactly "
-                     f"(same user, item, time, event type, value and session; "
-                     f"{_where(file, line)}); the "
-                     "first copy is kept. A double export or a retrying logger is the usual "
-                     "cause; check the export if there are many.")))
+        issues.append(duplicate_issue(int(dup.sum()), file, line))
     unmapped = kept & ~rule["mapped"]
     if unmapped.any():
         per = typed["event"][unmapped].value_counts()
-        shown = ", ".join(f"{t!r} ({_count(int(c), 'row')})" for t, c in per.head(10).items())
-        more = f" and {len(per) - 10} more" if len(per) > 10 else ""
-        treat = ("count as interactions" if config.unmapped_events_count
-                 else "do not count as interactions")
         file, line, _ = _at(rows, unmapped)
-        issues.append(QualityIssue(
-            code="unmapped_event_type", count=int(unmapped.sum()), unit="rows",
-            severity="flagged", first_file=file, first_line=line,
-            message=(f"{_count(len(per), 'event type')} with no rule: {shown}{more}; they {treat} "
-                     f"({_where(file, line)}). Add [events.<type>] with counts (and value) to the "
-                     "config file to say how each is treated.")))
+        issues.append(unmapped_issue(list(per.index), per.to_numpy(), file, line, config))
     return issues
+
+
+def all_set_aside(n_rows: int, parts: list[str], mapping: dict) -> InsufficientDataError:
+    """The error when no row survives the checks; ``parts`` says why, reason by reason."""
+    cols = ", ".join(f"{k}={v!r}" for k, v in mapping.items())
+    return InsufficientDataError(
+        f"every one of the {n_rows:,} rows read was set aside: {'; '.join(parts)}. Fix "
+        f"those problems in the input, or check the column mapping ({cols}) and name the "
+        "right columns with the --user-col/--item-col/--ts-col options or [columns].")
+
+
+def duplicate_issue(dups: int, file: str | None, line: int | None) -> QualityIssue:
+    """The ``duplicate_event`` issue (exact repeats, first copy kept); every engine's."""
+    return QualityIssue(
+        code="duplicate_event", count=dups, unit="rows", severity="dropped",
+        first_file=file, first_line=line,
+        message=(f"{_count(dups, 'row')} repeating an earlier event exactly "
+                 f"(same user, item, time, event type, value and session; "
+                 f"{_where(file, line)}); the "
+                 "first copy is kept. A double export or a retrying logger is the usual "
+                 "cause; check the export if there are many."))
+
+
+def unmapped_issue(names: list, counts: np.ndarray, file: str | None, line: int | None,
+                   config: AuditConfig) -> QualityIssue:
+    """The ``unmapped_event_type`` issue from the event types with no rule (most rows
+    first) and their row counts; every engine's."""
+    shown = ", ".join(f"{t!r} ({_count(int(c), 'row')})"
+                      for t, c in zip(names[:10], counts[:10]))
+    more = f" and {len(names) - 10} more" if len(names) > 10 else ""
+    treat = ("count as interactions" if config.unmapped_events_count
+             else "do not count as interactions")
+    return QualityIssue(
+        code="unmapped_event_type", count=int(np.sum(counts)), unit="rows",
+        severity="flagged", first_file=file, first_line=line,
+        message=(f"{_count(len(names), 'event type')} with no rule: {shown}{more}; they {treat} "
+                 f"({_where(file, line)}). Add [events.<type>] with counts (and value) to the "
+                 "config file to say how each is treated."))
 
 
 def _check_enough(rows: pd.DataFrame, reason: np.ndarray, events: pd.DataFrame,
@@ -311,12 +333,7 @@ def _check_enough(rows: pd.DataFrame, reason: np.ndarray, events: pd.DataFrame,
             if mask.any():
                 file, line, _ = _at(rows, mask)
                 parts.append(f"{code} {int(mask.sum()):,} ({_where(file, line)})")
-        cols = ", ".join(f"{k}={v!r}" for k, v in mapping.items())
-        raise InsufficientDataError(
-            f"every one of the {len(rows):,} rows read was set aside: {'; '.join(parts)}. Fix "
-            f"those problems in the input, or check the column mapping ({cols}) and name the "
-            "right columns with the --user-col/--item-col/--ts-col options or [columns]."
-        )
+        raise all_set_aside(len(rows), parts, mapping)
     if not events["counts"].any():
         per = events["event"].value_counts()
         shown = ", ".join(f"{t!r} {c:,}" for t, c in per.head(10).items())
