@@ -141,3 +141,35 @@ def test_evaluate_candidate_matches_the_dense_evaluation():
         np.testing.assert_array_equal(a.ndcg, b.ndcg)
         np.testing.assert_array_equal(a.recall, b.recall)
         np.testing.assert_array_equal(a.recommended, b.recommended)
+
+
+def _reference_top_k(scores: np.ndarray, exclude: sp.csr_matrix, k: int) -> np.ndarray:
+    """Full sort of every row: best score first, equal scores by lower index, -1 for slots
+    that only excluded items could fill (the definition top_k must meet)."""
+    dense_ex = exclude.toarray() > 0
+    out = np.full((scores.shape[0], k), -1, dtype=np.int64)
+    for u, row in enumerate(scores):
+        order = np.lexsort((np.arange(row.size), -row))
+        order = order[~dense_ex[u, order]][:k]
+        out[u, :order.size] = order
+    return out
+
+
+@pytest.mark.parametrize("n_items", [7, 150, 5_000])
+@pytest.mark.parametrize("seed", range(3))
+def test_top_k_equals_a_full_sort_with_ties_and_exclusions(n_items, seed):
+    """The chunk-bounded selection returns exactly a full sort's lists: ties at and across
+    the k-th place, rows whose top scores are all excluded, users with fewer than k unseen
+    items, and catalogues narrower and wider than the chunking."""
+    rng = np.random.default_rng(seed)
+    n_users, k = 40, 10
+    scores = rng.integers(0, 6, size=(n_users, n_items)).astype(np.float64)  # many ties
+    scores[:10] = rng.random((10, n_items))
+    scores[10] = 1.0  # one value everywhere
+    ex = rng.random((n_users, n_items)) < 0.1
+    ex[11] = scores[11] >= np.sort(scores[11])[-min(n_items, 50)]  # the best scores excluded
+    ex[12, :] = True
+    ex[12, :3] = False  # fewer than k unseen
+    exclude = sp.csr_matrix(ex.astype(np.float32))
+    expected = _reference_top_k(scores, exclude, min(k, n_items))
+    np.testing.assert_array_equal(top_k(scores.copy(), exclude, k), expected)

@@ -256,7 +256,7 @@ def fit_pure_svd(train: sp.csr_matrix, *, factors: int = SVD_FACTORS,
     pop = _item_counts(train)
     f = max(1, min(factors, min(train.shape) - 1))
     _, _, vt = svds(train.astype(np.float64), k=f, random_state=seed)
-    v = vt.T
+    v = np.ascontiguousarray(vt.T)  # sparse @ dense copies a non-contiguous operand per call
 
     def score(hist: sp.csr_matrix) -> np.ndarray:
         return _with_popularity_ties(np.asarray(hist @ v) @ v.T, pop)

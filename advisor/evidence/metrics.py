@@ -28,6 +28,9 @@ __all__ = [
 _BATCH_CELLS = 4_000_000
 """Score-matrix cells per batch (users x items): bounds memory to ~32 MB of float64."""
 
+_CHUNK = 64
+"""Items per chunk whose maximum :func:`top_k` takes to bound a row's k-th best score."""
+
 _SPARSE_BATCH = 1000
 """Users per batch on the ranking paths that never build a dense score row."""
 
@@ -164,30 +167,37 @@ def top_k(scores: np.ndarray, exclude: sp.csr_matrix, k: int) -> np.ndarray:
     >>> top_k(np.array([[1.0, 2.0, 2.0, 2.0]]), sp.csr_matrix((1, 4)), 2)
     array([[1, 2]])
     """
-    n_items = scores.shape[1]
+    n_users, n_items = scores.shape
     k = min(k, n_items)
+    if k <= 0:
+        return np.empty((n_users, 0), dtype=np.int64)
     rows = np.repeat(np.arange(exclude.shape[0]), np.diff(exclude.indptr))
     scores[rows, exclude.indices] = -np.inf
-    if k < n_items:
-        part = np.argpartition(-scores, k - 1, axis=1)[:, :k]
-        vals = np.take_along_axis(scores, part, axis=1)
-        # argpartition splits ties at the k-th value arbitrarily; redo those rows so that
-        # the lower item indices win.
-        kth = vals.min(axis=1)
-        tied = np.flatnonzero(np.isfinite(kth) & ((scores == kth[:, None]).sum(axis=1)
-                                                  > (vals == kth[:, None]).sum(axis=1)))
-        for r in tied:
-            above = np.flatnonzero(scores[r] > kth[r])
-            at = np.flatnonzero(scores[r] == kth[r])[:k - above.size]
-            part[r] = np.concatenate([above, at])
-        if tied.size:
-            vals = np.take_along_axis(scores, part, axis=1)
-    else:
-        part = np.tile(np.arange(n_items), (scores.shape[0], 1))
-        vals = scores.copy()
-    order = np.lexsort((part, -vals), axis=-1)
-    ranked = np.take_along_axis(part, order, axis=1)
-    ranked[~np.isfinite(np.take_along_axis(vals, order, axis=1))] = -1
+    # Every item of a row's top k scores at least the k-th largest of the row's chunk maxima
+    # (k chunks reach that value, so k items do); only chunks reaching it are looked into.
+    width = min(_CHUNK, max(1, n_items // (8 * k)))
+    n_chunks = -(-n_items // width)
+    full = n_items // width * width
+    peaks = np.empty((n_users, n_chunks))
+    peaks[:, :full // width] = scores[:, :full].reshape(n_users, -1, width).max(axis=2)
+    if full < n_items:
+        peaks[:, -1] = scores[:, full:].max(axis=1)
+    floor = (-np.partition(-peaks, k - 1, axis=1)[:, k - 1] if k < n_chunks
+             else np.full(n_users, -np.inf))
+    r, chunk = np.nonzero(peaks >= floor[:, None])
+    c = chunk[:, None] * width + np.arange(width)
+    inside = c < n_items  # the last chunk may be short
+    c = np.minimum(c, n_items - 1)
+    r = np.broadcast_to(r[:, None], c.shape)
+    keep = inside & (scores[r, c] >= floor[r])
+    r, c = r[keep], c[keep]
+    vals = scores[r, c]
+    order = np.lexsort((c, -vals, r))
+    r, c, vals = r[order], c[order], vals[order]
+    rank = np.arange(r.size) - np.searchsorted(r, r, side="left")
+    take = rank < k
+    ranked = np.full((n_users, k), -1, dtype=np.int64)
+    ranked[r[take], rank[take]] = np.where(np.isfinite(vals[take]), c[take], -1)
     return ranked
 
 
