@@ -73,7 +73,7 @@ def test_conditional_probability_similarity_matches_the_counting_formula():
             fi, fj, fij = x[:, i].sum(), x[:, j].sum(), (x[:, i] * x[:, j]).sum()
             if i != j and fi > 0 and fj > 0:
                 expected[i, j] = fij / (fi * fj ** alpha)
-    got = np.vstack([s for _, s in similarity_blocks(sp.csr_matrix(x), alpha=alpha)])
+    got = np.vstack([s.toarray() for _, s in similarity_blocks(sp.csr_matrix(x), alpha=alpha)])
     assert np.allclose(got, expected, atol=1e-6)
 
 
@@ -94,7 +94,7 @@ def test_item_neighbours_are_each_rows_top_k_of_the_counting_formula(seed, monke
     monkeypatch.setattr(similarity, "_BLOCK_PRODUCTS", 50)  # many blocks
     x = _random_matrix(10 + seed)
     k = 3
-    dense = np.vstack([s for _, s in similarity_blocks(x, alpha=0.5)]).astype(np.float64)
+    dense = np.vstack([s.toarray() for _, s in similarity_blocks(x, alpha=0.5)]).astype(np.float64)
     w = item_neighbours(x, neighbours=k, alpha=0.5).toarray()
     for i in range(dense.shape[0]):
         row = dense[i]

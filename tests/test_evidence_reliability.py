@@ -9,6 +9,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 from advisor.evidence.reliability import (
+    _row_jaccard,
     _row_pearson,
     neighbour_reliability,
     spearman_brown,
@@ -43,10 +44,30 @@ def test_row_pearson_matches_numpy_corrcoef_without_the_diagonal():
     b = a + rng.normal(0, 0.3, size=(3, 8))
     for i in range(3):
         a[i, i] = b[i, i] = 0.0
-    got = _row_pearson(a, b)
+    got = _row_pearson(sp.csr_matrix(a), sp.csr_matrix(b))
     for i in range(3):
         keep = np.arange(8) != i
         assert got[i] == pytest.approx(np.corrcoef(a[i, keep], b[i, keep])[0, 1])
+
+
+def test_row_jaccard_compares_each_items_top_k_sets_from_a_full_sort():
+    """Overlap of the halves' top-k positive neighbours, own item excluded, ties to the lower
+    index, for rows that are items in no particular order: |A & B| / |A | B| per row."""
+    rng = np.random.default_rng(4)
+    items = np.array([7, 2, 11, 0])
+    a = np.round(rng.random((4, 12)), 1) * (rng.random((4, 12)) < 0.6)  # ties and zeros
+    b = np.round(rng.random((4, 12)), 1) * (rng.random((4, 12)) < 0.6)
+    a[0, 7] = b[0, 7] = 5.0  # the own item must never count
+    b[3] = 0.0  # nothing on one side: overlap 0
+
+    def top(row, item):
+        order = [j for j in np.lexsort((np.arange(row.size), -row)) if j != item]
+        return {j for j in order[:3] if row[j] > 0}
+
+    got = _row_jaccard(sp.csr_matrix(a), sp.csr_matrix(b), 3, items)
+    for r, item in enumerate(items):
+        sa, sb = top(a[r], item), top(b[r], item)
+        assert got[r] == pytest.approx(len(sa & sb) / len(sa | sb))
 
 
 def _clustered(n_users: int, seed: int, *, taste: float) -> sp.csr_matrix:

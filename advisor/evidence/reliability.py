@@ -13,7 +13,12 @@ import numpy as np
 import scipy.sparse as sp
 
 from advisor.evidence.model import NeighbourReliability
-from advisor.evidence.similarity import ALPHA, NEIGHBOURS, similarity_blocks, top_neighbours
+from advisor.evidence.similarity import (
+    ALPHA,
+    NEIGHBOURS,
+    similarity_blocks,
+    top_neighbours_sparse,
+)
 
 __all__ = [
     "MIN_HALF_SUPPORT",
@@ -74,32 +79,44 @@ def spearman_brown_factor(rho: float, target: float) -> float | None:
     return target * (1.0 - rho) / (rho * (1.0 - target))
 
 
-def _row_pearson(sa: np.ndarray, sb: np.ndarray) -> np.ndarray:
+def _row_pearson(sa: sp.csr_matrix, sb: sp.csr_matrix) -> np.ndarray:
     """Pearson correlation of matching rows over all columns except the row's own item.
 
-    The diagonal is zero in both blocks, so it adds nothing to the sums; only the count
-    drops by one. Rows constant in either half give NaN.
+    Computed from the rows' sums, sums of squares and cross products, so only the stored
+    entries are touched; the diagonal holds no entry in either block and adds nothing to the
+    sums, only the count drops by one. Rows constant in either half give NaN.
     """
     a = sa.astype(np.float64)
     b = sb.astype(np.float64)
     n = a.shape[1] - 1
-    sum_a, sum_b = a.sum(axis=1), b.sum(axis=1)
-    cov = (a * b).sum(axis=1) - sum_a * sum_b / n
-    var_a = (a * a).sum(axis=1) - sum_a ** 2 / n
-    var_b = (b * b).sum(axis=1) - sum_b ** 2 / n
+
+    def row_sum(m: sp.csr_matrix) -> np.ndarray:
+        return np.asarray(m.sum(axis=1)).ravel()
+
+    sum_a, sum_b = row_sum(a), row_sum(b)
+    cov = row_sum(a.multiply(b)) - sum_a * sum_b / n
+    var_a = row_sum(a.multiply(a)) - sum_a ** 2 / n
+    var_b = row_sum(b.multiply(b)) - sum_b ** 2 / n
     with np.errstate(invalid="ignore", divide="ignore"):
         r = cov / np.sqrt(var_a * var_b)
     return np.where((var_a > 1e-12) & (var_b > 1e-12), r, np.nan)
 
 
-def _row_jaccard(sa: np.ndarray, sb: np.ndarray, k: int) -> np.ndarray:
-    """Jaccard overlap of the two halves' top-k neighbour sets per row (positive sims only)."""
-    ia, va = top_neighbours(sa, k)
-    ib, vb = top_neighbours(sb, k)
-    key = np.concatenate([np.where(va > 0, ia, -1), np.where(vb > 0, ib, -2)], axis=1)
-    key.sort(axis=1)
-    inter = ((key[:, 1:] == key[:, :-1]) & (key[:, 1:] >= 0)).sum(axis=1)
-    union = (va > 0).sum(axis=1) + (vb > 0).sum(axis=1) - inter
+def _row_jaccard(sa: sp.csr_matrix, sb: sp.csr_matrix, k: int, items: np.ndarray
+                 ) -> np.ndarray:
+    """Jaccard overlap of the two halves' top-k neighbour sets per row (positive sims only).
+
+    Row ``r`` of both blocks is item ``items[r]``.
+    """
+    n_items = sa.shape[1]
+    ra, ca, _ = top_neighbours_sparse(sa, k, items=items)
+    rb, cb, _ = top_neighbours_sparse(sb, k, items=items)
+    position = np.full(n_items, -1, dtype=np.int64)
+    position[items] = np.arange(items.size)
+    shared = np.intersect1d(ra * n_items + ca, rb * n_items + cb, assume_unique=True)
+    inter = np.bincount(position[shared // n_items], minlength=items.size)
+    union = (np.bincount(position[ra], minlength=items.size)
+             + np.bincount(position[rb], minlength=items.size) - inter)
     with np.errstate(invalid="ignore", divide="ignore"):
         return np.where(union > 0, inter / union, np.nan)
 
@@ -164,15 +181,17 @@ def neighbour_reliability(train: sp.csr_matrix, *, rng: np.random.Generator,
     eligible = (fa >= min_support) & (fb >= min_support)
     items = np.flatnonzero(eligible)
     if items.size > max_items:
-        # Each compared item costs a dense row over the catalogue in both halves; a seeded
-        # sample of items bounds that on large catalogues (the mean over items is estimated).
+        # Each compared item costs its similarity row (a product over its users' histories)
+        # in both halves; a seeded sample of items bounds that on large catalogues (the mean
+        # over items is estimated).
         items = np.sort(rng.choice(items, size=max_items, replace=False))
     corr, overlap = [], []
     if items.size >= 1 and half >= min_support:
-        for (_, sa), (_, sb) in zip(similarity_blocks(xa, alpha=alpha, rows=items),
-                                    similarity_blocks(xb, alpha=alpha, rows=items)):
+        for (start, sa), (_, sb) in zip(similarity_blocks(xa, alpha=alpha, rows=items),
+                                        similarity_blocks(xb, alpha=alpha, rows=items)):
             corr.append(_row_pearson(sa, sb))
-            overlap.append(_row_jaccard(sa, sb, neighbours))
+            overlap.append(_row_jaccard(sa, sb, neighbours,
+                                        items[start:start + sa.shape[0]]))
     r = np.concatenate(corr) if corr else np.array([])
     r = r[np.isfinite(r)]
     jac = np.concatenate(overlap) if overlap else np.array([])

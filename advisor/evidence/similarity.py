@@ -11,7 +11,7 @@ from collections.abc import Iterator
 import numpy as np
 import scipy.sparse as sp
 
-__all__ = ["ALPHA", "NEIGHBOURS", "item_neighbours", "similarity_blocks", "top_neighbours",
+__all__ = ["ALPHA", "NEIGHBOURS", "item_neighbours", "similarity_blocks",
            "top_neighbours_sparse"]
 
 ALPHA = 0.5
@@ -61,9 +61,9 @@ def similarity_blocks(train: sp.csr_matrix, *, alpha: float = ALPHA,
     ------
     start : int
         Position of the block's first row: an item index, or an index into ``rows``.
-    sim : ndarray of float32, shape (block, n_items)
-        sim[i, j] = Freq(i, j) / (Freq(i) * Freq(j) ** alpha), zero on the diagonal and for
-        items without training interactions.
+    sim : csr_matrix of float32, shape (block, n_items)
+        sim[i, j] = Freq(i, j) / (Freq(i) * Freq(j) ** alpha); no entry on the diagonal or
+        where no user has both items.
 
     Notes
     -----
@@ -79,7 +79,7 @@ def similarity_blocks(train: sp.csr_matrix, *, alpha: float = ALPHA,
     Examples
     --------
     >>> x = sp.csr_matrix(np.array([[1, 1, 0], [1, 0, 1], [1, 1, 0]], dtype=np.float32))
-    >>> [round(float(v), 3) for v in next(similarity_blocks(x, alpha=0.0))[1][0]]
+    >>> [round(float(v), 3) for v in next(similarity_blocks(x, alpha=0.0))[1].toarray()[0]]
     [0.0, 0.667, 0.333]
     """
     n_items = train.shape[1]
@@ -88,41 +88,26 @@ def similarity_blocks(train: sp.csr_matrix, *, alpha: float = ALPHA,
     order = np.arange(n_items) if rows is None else np.asarray(rows, dtype=np.int64)
     for start in range(0, order.size, block):
         idx = order[start:start + block]
-        sim = (left[idx] @ right).toarray().astype(np.float32, copy=False)
-        sim[np.arange(idx.size), idx] = 0.0
+        sim = (left[idx] @ right).tocsr()
+        local = np.repeat(np.arange(idx.size), np.diff(sim.indptr))
+        sim.data[sim.indices == idx[local]] = 0.0
+        sim.eliminate_zeros()
         yield start, sim
 
 
-def top_neighbours(sim: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
-    """Column indices and values of the k largest entries per row (unordered).
-
-    Entries that are not positive are returned with value 0 and should be ignored.
-
-    Examples
-    --------
-    >>> idx, val = top_neighbours(np.array([[0.0, 0.5, 0.2, 0.9]]), 2)
-    >>> sorted(idx[0].tolist())
-    [1, 3]
-    """
-    n = sim.shape[1]
-    k = min(k, n)
-    idx = np.argpartition(-sim, k - 1, axis=1)[:, :k] if k < n else (
-        np.tile(np.arange(n), (sim.shape[0], 1)))
-    val = np.take_along_axis(sim, idx, axis=1)
-    return idx, np.where(val > 0, val, 0.0)
-
-
-def top_neighbours_sparse(sim: sp.csr_matrix, k: int, *, first: int = 0
+def top_neighbours_sparse(sim: sp.csr_matrix, k: int, *, items: np.ndarray | None = None
                           ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """The k largest positive entries per row of a sparse block of similarity rows.
 
-    Row ``r`` of ``sim`` is item ``first + r``; its own column (the diagonal) is skipped.
-    Ties go to the lower column index, so the lists are the same on every run.
+    Row ``r`` of ``sim`` is item ``items[r]`` (default ``r``); its own column (the diagonal)
+    is skipped.
+    Values are compared in float32 (the precision :func:`similarity_blocks` computes in);
+    ties go to the lower column index, so the lists are the same on every run.
 
     Returns
     -------
     rows, cols, vals : ndarray
-        Item, neighbour and similarity of every kept entry.
+        Item, neighbour and similarity (float32) of every kept entry, row by row, best first.
 
     Examples
     --------
@@ -131,15 +116,22 @@ def top_neighbours_sparse(sim: sp.csr_matrix, k: int, *, first: int = 0
     >>> c.tolist(), v.tolist()
     ([1, 2], [0.5, 0.5])
     """
-    sim = sim.tocoo()
-    rows = sim.row.astype(np.int64) + first
-    keep = (sim.data > 0) & (sim.col != rows)
-    rows, cols, vals = rows[keep], sim.col.astype(np.int64)[keep], sim.data[keep]
-    order = np.lexsort((cols, -vals, rows))
-    rows, cols, vals = rows[order], cols[order], vals[order]
-    starts = np.searchsorted(rows, rows, side="left")
-    top = np.arange(rows.size) - starts < k
-    return rows[top], cols[top], vals[top]
+    sim = sim.tocsr()
+    if not sim.has_sorted_indices:
+        sim = sim.sorted_indices()
+    items = np.arange(sim.shape[0]) if items is None else np.asarray(items, dtype=np.int64)
+    local = np.repeat(np.arange(sim.shape[0], dtype=np.int64), np.diff(sim.indptr))
+    vals = sim.data.astype(np.float32, copy=False)
+    keep = (vals > 0) & (sim.indices != items[local])
+    local, cols, vals = local[keep], sim.indices[keep].astype(np.int64), vals[keep]
+    # The bits of a positive float32 order like the value: one integer key (row, then value
+    # descending) sorted stably keeps each row's columns ascending among equal values.
+    key = (local << 31) | (0x7FFFFFFF - vals.view(np.int32).astype(np.int64))
+    order = np.argsort(key, kind="stable")
+    local, cols, vals = local[order], cols[order], vals[order]
+    counts = np.bincount(local, minlength=sim.shape[0])
+    top = np.arange(local.size) - np.repeat(np.cumsum(counts) - counts, counts) < k
+    return items[local[top]], cols[top], vals[top]
 
 
 def item_neighbours(train: sp.csr_matrix, *, neighbours: int = NEIGHBOURS,
@@ -184,7 +176,8 @@ def item_neighbours(train: sp.csr_matrix, *, neighbours: int = NEIGHBOURS,
                                              _BLOCK_PRODUCTS)), [n_items]]))
     rows, cols, vals = [], [], []
     for lo, hi in zip(edges[:-1], edges[1:]):
-        r, c, v = top_neighbours_sparse((left[lo:hi] @ right).tocsr(), neighbours, first=lo)
+        r, c, v = top_neighbours_sparse((left[lo:hi] @ right).tocsr(), neighbours,
+                                        items=np.arange(lo, hi))
         rows.append(r)
         cols.append(c)
         vals.append(v.astype(np.float64))
