@@ -151,6 +151,20 @@ def test_pure_svd_projects_onto_the_top_singular_vectors():
     assert np.allclose(got, expected, atol=1e-4 * np.abs(expected).max())
 
 
+def test_pure_svd_drops_factors_of_a_matrix_with_lower_rank():
+    """A matrix of rank 3 asked for 6 factors keeps 3: each training row projects onto the
+    row space, which holds it, so the scores reproduce the rows (no arbitrary directions)."""
+    rng = np.random.default_rng(2)
+    patterns = (rng.random((3, 12)) < 0.4).astype(np.float32)
+    x = sp.csr_matrix(patterns[rng.integers(0, 3, size=30)])
+    # numpy.linalg.matrix_rank as the reference rank.
+    assert np.linalg.matrix_rank(x.toarray()) == 3
+    cand = fit_pure_svd(x, factors=6, seed=0)
+    assert cand.method == "PureSVD (3 factors)"
+    got = cand.score(x)
+    assert np.allclose(got, x.toarray(), atol=1e-4)
+
+
 def test_latent_fitter_switches_to_pure_svd_for_large_catalogues():
     """EASE up to the item limit, PureSVD above it."""
     x = _random_matrix(8, users=40, items=20)
