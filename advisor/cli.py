@@ -176,8 +176,8 @@ def _audit_options(f):
                           "Java). Default auto: duckdb, or pandas for input duckdb does not "
                           "read."),
         click.option("--threads", type=click.IntRange(1, 1024), default=None,
-                     help="Threads for the duckdb engine and a local Spark (default: all "
-                          "cores)."),
+                     help="Threads for the duckdb engine, a local Spark and the backtest's "
+                          "ranking (default: all cores)."),
         click.option("--spark-master", metavar="URL", default=None,
                      help="Spark master for --engine spark (local[4], spark://host:7077, "
                           "yarn); default: the active session, else local[threads]."),

@@ -152,7 +152,8 @@ class AuditConfig:
     ``auto``: duckdb, falling back to pandas for input duckdb does not read (JSON Lines,
     for one); the report names the engine that ran."""
     threads: int | None = None
-    """Threads the ``duckdb`` engine (and a local Spark) may use; ``None``: every core."""
+    """Threads the ``duckdb`` engine, a local Spark and the backtest's ranking of test users
+    may use; ``None``: every core."""
     engine_memory_gib: float | None = None
     """Memory the ``duckdb`` engine may use before it spills to disk, GiB; ``None``: a
     quarter of the machine's memory, at most 2 GiB."""

@@ -315,7 +315,8 @@ def _evidence(agg: Aggregates, log, config: AuditConfig, say):
     return gather_evidence(pairs, agg.n_users, agg.n_items, item_category=cats,
                            seed=config.seed, max_test_users=config.backtest_users,
                            max_users=config.backtest_sample_users,
-                           confidence=config.confidence, progress=say)
+                           confidence=config.confidence, threads=config.threads,
+                           progress=say)
 
 
 def _config_dict(config: AuditConfig) -> dict:

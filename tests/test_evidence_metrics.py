@@ -173,3 +173,21 @@ def test_top_k_equals_a_full_sort_with_ties_and_exclusions(n_items, seed):
     exclude = sp.csr_matrix(ex.astype(np.float32))
     expected = _reference_top_k(scores, exclude, min(k, n_items))
     np.testing.assert_array_equal(top_k(scores.copy(), exclude, k), expected)
+
+
+def test_ranking_in_several_threads_gives_the_single_thread_metrics(monkeypatch):
+    """Batches ranked in parallel threads write the same per-user metrics and counts."""
+    import advisor.evidence.metrics as metrics
+    from advisor.evidence.candidates import fit_item_knn, fit_popularity
+
+    monkeypatch.setattr(metrics, "_SPARSE_BATCH", 7)  # many batches
+    x = _random_log(11, n_users=300)
+    rng = np.random.default_rng(2)
+    held = sp.csr_matrix((rng.random(x.shape) < 0.03) & (x.toarray() == 0), dtype=np.float32)
+    users = np.flatnonzero(np.diff(held.indptr) > 0)
+    for cand in (fit_popularity(x), fit_item_knn(x)):
+        one = metrics.evaluate_candidate(cand, x, held, users, k=10, workers=1)
+        many = metrics.evaluate_candidate(cand, x, held, users, k=10, workers=3)
+        np.testing.assert_array_equal(many.ndcg, one.ndcg)
+        np.testing.assert_array_equal(many.recall, one.recall)
+        np.testing.assert_array_equal(many.recommended, one.recommended)

@@ -89,7 +89,9 @@ def _with_popularity_ties(scores: np.ndarray, popularity: np.ndarray) -> np.ndar
     top = np.maximum(scores.max(axis=1, keepdims=True), -scores.min(axis=1, keepdims=True))
     eps = 1e-6 * np.where(top > 0, top, 1.0)
     pmax = popularity.max() if popularity.size and popularity.max() > 0 else 1.0
-    scores += eps * (popularity / pmax)[None, :]
+    bonus = popularity / pmax
+    for row, e in zip(scores, eps[:, 0]):  # row by row: no temporary the size of the batch
+        row += e * bonus
     return scores
 
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 from collections.abc import Callable
 
 import numpy as np
@@ -153,6 +154,7 @@ def gather_evidence(
     activity_bands: tuple[tuple[int, int | None], ...] = ((1, 2), (3, 5), (6, 20), (21, None)),
     learning_fractions: tuple[float, ...] = (0.125, 0.25, 0.5, 1.0),
     lift_target: float = 0.10,
+    threads: int | None = None,
     progress: Callable[[str], None] | None = None,
 ) -> Evidence:
     """Offline backtest of candidate recommenders on the log, with everything needed to judge it.
@@ -184,6 +186,9 @@ def gather_evidence(
         Shares of training users for the learning curve.
     lift_target : float, optional
         Relative NDCG@k lift over popularity worth having.
+    threads : int, optional
+        Threads for ranking test users (default: the machine's cores); the results do not
+        depend on it.
     progress : callable, optional
         Called with a short step name before each step.
 
@@ -250,6 +255,7 @@ def gather_evidence(
         return _empty(seed, k, confidence, lift_target, s, notes)
 
     train, test, users = split.train, split.test, split.users
+    workers = int(threads or os.cpu_count() or 1)
     boot = _rng(seed, _BOOT)
     tail = long_tail_items(np.asarray(train.sum(axis=0)).ravel())
     fit_latent = latent_fitter(train, seed=seed)
@@ -268,7 +274,7 @@ def gather_evidence(
     for name, fit in fits:
         step(f"fit {name}")
         cand = fit()
-        m = evaluate_candidate(cand, train, test, users, k=k)
+        m = evaluate_candidate(cand, train, test, users, k=k, workers=workers)
         per_user[name] = m
         results[name] = _result(cand, m, tail, n_items=n_items, confidence=confidence,
                                 rng=boot)
@@ -301,8 +307,10 @@ def gather_evidence(
     curve_users = users[at]
 
     def evaluate(sub: sp.csr_matrix) -> tuple[np.ndarray, np.ndarray]:
-        cand = evaluate_candidate(fit_best(sub), train, test, curve_users, k=k).ndcg
-        pop = evaluate_candidate(fit_popularity(sub), train, test, curve_users, k=k).ndcg
+        cand = evaluate_candidate(fit_best(sub), train, test, curve_users, k=k,
+                                  workers=workers).ndcg
+        pop = evaluate_candidate(fit_popularity(sub), train, test, curve_users, k=k,
+                                 workers=workers).ndcg
         return cand, pop
 
     points = measure_points(learning_fractions, train, evaluate, rng=_rng(seed, _CURVE),

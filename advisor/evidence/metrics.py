@@ -7,6 +7,7 @@ Krichene & Rendle 2020); items the user already has in training are never recomm
 from __future__ import annotations
 
 from collections.abc import Callable, Collection, Sequence
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
@@ -25,8 +26,10 @@ __all__ = [
     "top_k_sparse",
 ]
 
-_BATCH_CELLS = 4_000_000
-"""Score-matrix cells per batch (users x items): bounds memory to ~32 MB of float64."""
+_BATCH_CELLS = 16_000_000
+"""Score-matrix cells per batch (users x items): bounds memory to ~128 MB of float64. Larger
+batches read the factor matrix of a latent model fewer times (at 100k items, 4M cells took
+5.4 s and 16M cells 4.4 s to rank 5,000 users)."""
 
 _CHUNK = 64
 """Items per chunk whose maximum :func:`top_k` takes to bound a row's k-th best score."""
@@ -347,11 +350,13 @@ def evaluate_scorer(score: Callable[[sp.csr_matrix], np.ndarray], train: sp.csr_
         scores = np.require(score(hist), dtype=np.float64, requirements=["W", "C"])
         return top_k(scores, hist, min(k, n_items))
 
+    # One batch at a time: the scorers' dense products already use every core through BLAS,
+    # and parallel batches would oversubscribe them.
     return _evaluate(rank, train, test, users, batch=batch)
 
 
 def evaluate_candidate(cand, train: sp.csr_matrix, test: sp.csr_matrix, users: np.ndarray, *,
-                       k: int) -> UserMetrics:
+                       k: int, workers: int = 1) -> UserMetrics:
     """:func:`evaluate_scorer` for a fitted candidate, by its cheapest exact ranking path.
 
     A candidate with the same scores for everyone (``cand.fixed``) is ranked once
@@ -359,30 +364,35 @@ def evaluate_candidate(cand, train: sp.csr_matrix, test: sp.csr_matrix, users: n
     (``cand.sparse``) is ranked over each user's non-zero items and a popularity prefix
     (:func:`top_k_sparse`); any other through its dense scores. All paths give the lists
     :func:`top_k` gives on the dense scores (equal scores to the lower item index).
+    The fixed and sparse paths rank ``workers`` batches of users at once, each in a thread
+    of its own (their numpy and scipy work releases the interpreter lock); the results do
+    not depend on it.
     """
     if cand.fixed is not None:
         order = _ranking(cand.fixed)
         return _evaluate(lambda hist: top_k_fixed(order, hist, k), train, test, users,
-                         batch=_SPARSE_BATCH)
+                         batch=_SPARSE_BATCH, workers=workers)
     if cand.sparse is not None:
         pop = np.asarray(cand.popularity, dtype=np.float64)
         order = _ranking(pop)
         return _evaluate(lambda hist: top_k_sparse(cand.sparse(hist), pop, order, hist, k),
-                         train, test, users, batch=_SPARSE_BATCH)
+                         train, test, users, batch=_SPARSE_BATCH, workers=workers)
     return evaluate_scorer(cand.score, train, test, users, k=k)
 
 
 def _evaluate(rank: Callable[[sp.csr_matrix], np.ndarray], train: sp.csr_matrix,
-              test: sp.csr_matrix, users: np.ndarray, *, batch: int) -> UserMetrics:
-    """Per-user metrics of the lists ``rank`` gives for batches of users' training rows."""
+              test: sp.csr_matrix, users: np.ndarray, *, batch: int,
+              workers: int = 1) -> UserMetrics:
+    """Per-user metrics of the lists ``rank`` gives for batches of users' training rows,
+    ``workers`` batches at a time (each batch's results are written to its own slots)."""
     n_items = train.shape[1]
     ndcg = np.empty(len(users))
     recall = np.empty(len(users))
     recommended = np.zeros(n_items, dtype=np.int64)
-    for start in range(0, len(users), batch):
+
+    def one(start: int) -> np.ndarray:
         u = users[start:start + batch]
-        hist = train[u]
-        ranked = rank(hist)
+        ranked = rank(train[u])
         held = test[u]
         valid = ranked >= 0
         safe = np.where(valid, ranked, 0)
@@ -392,5 +402,14 @@ def _evaluate(rank: Callable[[sp.csr_matrix], np.ndarray], train: sp.csr_matrix,
         hits = np.isin(row[:, None] * n_items + safe, held_key) & valid
         ndcg[start:start + len(u)] = ndcg_from_hits(hits, n_rel)
         recall[start:start + len(u)] = recall_from_hits(hits, n_rel)
-        recommended += np.bincount(ranked[valid], minlength=n_items)
+        return np.bincount(ranked[valid], minlength=n_items)
+
+    starts = range(0, len(users), batch)
+    if workers > 1 and len(starts) > 1:
+        with ThreadPoolExecutor(min(workers, len(starts))) as pool:
+            for c in pool.map(one, starts):
+                recommended += c
+    else:
+        for c in map(one, starts):
+            recommended += c
     return UserMetrics(ndcg=ndcg, recall=recall, recommended=recommended)
