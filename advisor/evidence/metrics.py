@@ -365,8 +365,8 @@ def evaluate_candidate(cand, train: sp.csr_matrix, test: sp.csr_matrix, users: n
     (:func:`top_k_sparse`); any other through its dense scores. All paths give the lists
     :func:`top_k` gives on the dense scores (equal scores to the lower item index).
     The fixed and sparse paths rank ``workers`` batches of users at once, each in a thread
-    of its own (their numpy and scipy work releases the interpreter lock); the results do
-    not depend on it.
+    of its own (much of their numpy and scipy work releases the interpreter lock); the
+    results do not depend on it.
     """
     if cand.fixed is not None:
         order = _ranking(cand.fixed)
