@@ -44,7 +44,8 @@ def _factors(train: sp.csr_matrix, alpha: float) -> tuple[sp.csr_matrix, sp.csr_
 
 
 def similarity_blocks(train: sp.csr_matrix, *, alpha: float = ALPHA,
-                      rows: np.ndarray | None = None) -> Iterator[tuple[int, np.ndarray]]:
+                      rows: np.ndarray | None = None
+                      ) -> Iterator[tuple[int, sp.csr_matrix]]:
     """Yield blocks of rows of the conditional-probability similarity matrix.
 
     Parameters
@@ -100,9 +101,8 @@ def top_neighbours_sparse(sim: sp.csr_matrix, k: int, *, items: np.ndarray | Non
     """The k largest positive entries per row of a sparse block of similarity rows.
 
     Row ``r`` of ``sim`` is item ``items[r]`` (default ``r``); its own column (the diagonal)
-    is skipped.
-    Values are compared in float32 (the precision :func:`similarity_blocks` computes in);
-    ties go to the lower column index, so the lists are the same on every run.
+    is skipped. Values are compared in float32 (the precision :func:`similarity_blocks`
+    computes in); ties go to the lower column index, so the lists are the same on every run.
 
     Returns
     -------
