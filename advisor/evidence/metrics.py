@@ -197,11 +197,22 @@ def top_k(scores: np.ndarray, exclude: sp.csr_matrix, k: int) -> np.ndarray:
     vals = scores[r, c]
     order = np.lexsort((c, -vals, r))
     r, c, vals = r[order], c[order], vals[order]
-    rank = np.arange(r.size) - np.searchsorted(r, r, side="left")
+    rank = _rank_in_rows(r)
     take = rank < k
     ranked = np.full((n_users, k), -1, dtype=np.int64)
     ranked[r[take], rank[take]] = np.where(np.isfinite(vals[take]), c[take], -1)
     return ranked
+
+
+def _rank_in_rows(rows: np.ndarray) -> np.ndarray:
+    """0-based position of each entry within its run of equal, sorted ``rows``.
+
+    Examples
+    --------
+    >>> _rank_in_rows(np.array([0, 0, 2, 2, 2])).tolist()
+    [0, 1, 0, 1, 2]
+    """
+    return np.arange(rows.size) - np.searchsorted(rows, rows, side="left")
 
 
 def _ranking(values: np.ndarray) -> np.ndarray:
@@ -279,7 +290,7 @@ def top_k_sparse(personal: sp.csr_matrix, popularity: np.ndarray, order: np.ndar
     rows, cols, score = rows[keep], cols[keep], score[keep]
     order_ = np.lexsort((cols, -score, rows))
     rows, cols = rows[order_], cols[order_]
-    rank = np.arange(rows.size) - np.searchsorted(rows, rows, side="left")
+    rank = _rank_in_rows(rows)
     take = rank < k
     out = np.full((n_users, k), -1, dtype=np.int64)
     out[rows[take], rank[take]] = cols[take]
